@@ -1,0 +1,386 @@
+"""The build: recipe -> scan -> vocabularies -> mixed shards -> build.json.
+
+One pass over the text segments every sentence into per-language type ids (kept on disk in a
+work directory); every word-level condition is then a lookup table applied with numpy.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import shutil
+from collections import Counter
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable, Iterator
+
+import numpy as np
+
+from . import __version__
+from .errors import BivocabError, OutputError
+from .manifest import (LOCK, MANIFEST, WORK, atomic_open, atomic_write_text, build_lock,
+                       canonical_json, environment, read_manifest, sha256_file)
+from .mix import SplitOrder, mix_split
+from .recipe import SPLITS, Recipe, load_recipe
+from .scan import ScanResult, ScanTask, TypeTable, ordered_map, ragged_gather, scan_block
+from .segment import token_class
+from .shards import PROVENANCE_DTYPE, shard_stem, write_npy
+from .sources import InputFile, file_sha256, read_blocks
+from .splits import split_thresholds
+from .vocab import Vocabulary, build_vocabulary, tokenizer_json, vocab_tsv
+
+INCOMPLETE = ".bivocab-incomplete"
+
+
+@dataclass
+class LanguageScan:
+    """Everything pass 1 learned about one language; the big arrays live in the work dir."""
+
+    tag: str
+    table: TypeTable = field(default_factory=TypeTable)
+    split_counts: np.ndarray = field(default_factory=lambda: np.zeros((3, 0), dtype=np.int64))
+    sentences: int = 0
+    tokens: int = 0
+
+
+@dataclass(frozen=True)
+class SplitSummary:
+    sentences: int
+    tokens: int                       # without end-of-sentence tokens
+    oov: tuple[int, ...]              # tokens mapped to an unknown id, per language
+    tokens_per_lang: tuple[int, ...]
+
+
+@dataclass(frozen=True)
+class ConditionSummary:
+    name: str
+    policy: str
+    size: int
+    splits: dict[str, SplitSummary]
+
+
+@dataclass(frozen=True)
+class BuildResult:
+    out: Path
+    manifest: dict[str, Any]
+    summaries: tuple[ConditionSummary, ...]
+
+
+Progress = Callable[[str], None]
+
+
+def _quiet(_: str) -> None:
+    pass
+
+
+def input_files(recipe: Recipe) -> list[InputFile]:
+    base = recipe.base_dir
+    return [InputFile(base / f, f, lang.tag) for lang in recipe.languages for f in lang.files]
+
+
+def check_output_dir(out: Path, recipe: Recipe, force: bool) -> None:
+    """Refuse to write into a directory that holds something other than a build of this recipe."""
+    if not out.exists():
+        return
+    if not out.is_dir():
+        raise OutputError(f"{out}: exists and is not a directory")
+    names = {p.name for p in out.iterdir()} - {LOCK, WORK}
+    if not names or force:
+        return
+    manifest = read_manifest(out)
+    if manifest is not None and manifest.get("recipe", {}).get("name") == recipe.name:
+        return
+    marker = out / INCOMPLETE
+    if marker.exists() and marker.read_text(encoding="utf-8").strip() == recipe.name:
+        return
+    what = (f"a build of recipe '{manifest['recipe']['name']}'" if manifest and "recipe" in manifest
+            else "files that are not a bivocab build of this recipe")
+    raise OutputError(f"{out}: directory holds {what}; choose another --out or pass --force to replace it")
+
+
+def build(recipe: Recipe | str | os.PathLike[str], out: str | os.PathLike[str], jobs: int = 1,
+          force: bool = False, progress: Progress = _quiet) -> BuildResult:
+    """Build every condition of ``recipe`` into directory ``out`` and return the summary."""
+    if not isinstance(recipe, Recipe):
+        recipe = load_recipe(recipe)
+    if jobs < 1:
+        raise BivocabError(f"--jobs must be >= 1, got {jobs}")
+    out = Path(out)
+    check_output_dir(out, recipe, force)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OutputError(f"{out}: cannot create output directory: {exc.strerror}") from None
+    if not os.access(out, os.W_OK):
+        raise OutputError(f"{out}: output directory is not writable")
+    with build_lock(out):
+        previous = read_manifest(out) if (out / MANIFEST).exists() else None
+        work = out / WORK
+        try:
+            # From here until build.json is renamed into place the directory is incomplete.
+            with contextlib.suppress(FileNotFoundError):
+                (out / MANIFEST).unlink()
+            atomic_write_text(out / INCOMPLETE, recipe.name + "\n")
+            shutil.rmtree(work, ignore_errors=True)
+            work.mkdir()
+            result = _build_into(recipe, out, work, jobs, progress)
+            _remove_stale(out, previous, result.manifest)
+            (out / INCOMPLETE).unlink()
+            return result
+        except OSError as exc:
+            raise OutputError(f"{out}: cannot write the build: {exc.strerror or exc}"
+                              + (" (disk full)" if getattr(exc, "errno", None) == 28 else "")) from None
+        finally:
+            shutil.rmtree(work, ignore_errors=True)
+
+
+def _remove_stale(out: Path, previous: dict[str, Any] | None, manifest: dict[str, Any]) -> None:
+    if not previous:
+        return
+    keep = {f["path"] for f in manifest["files"]}
+    for entry in previous.get("files", []):
+        path = entry.get("path", "")
+        if path not in keep and not os.path.isabs(path) and ".." not in Path(path).parts:
+            with contextlib.suppress(FileNotFoundError):
+                (out / path).unlink()
+
+
+def _scan_tasks(recipe: Recipe, files: list[InputFile]) -> Iterator[ScanTask]:
+    thresholds = split_thresholds(recipe.splits)
+    for index, source in enumerate(files):
+        for block in read_blocks(source, index):
+            yield ScanTask(block, source.display, recipe.clean, recipe.seed, thresholds)
+
+
+class _WorkArrays:
+    """Append-only binary files of one language in the work directory."""
+
+    NAMES = {"tokens": np.uint32, "lengths": np.int64, "splits": np.uint8, "lines": np.int64, "inputs": np.uint32}
+
+    def __init__(self, work: Path, tag: str):
+        self.paths = {n: work / f"{tag}.{n}.bin" for n in self.NAMES}
+        self.handles = {n: open(p, "wb") for n, p in self.paths.items()}
+        self.text = open(work / f"{tag}.text", "wb")
+
+    def append(self, result: ScanResult, global_tokens: np.ndarray) -> None:
+        self.handles["tokens"].write(global_tokens.astype(np.uint32).tobytes())
+        self.handles["lengths"].write(result.lengths.astype(np.int64).tobytes())
+        self.handles["splits"].write(result.splits.tobytes())
+        self.handles["lines"].write(result.line_numbers.astype(np.int64).tobytes())
+        self.handles["inputs"].write(np.full(len(result.lengths), result.file_index, np.uint32).tobytes())
+        if result.text:
+            self.text.write(result.text.encode("utf-8") + b"\n")
+
+    def close(self) -> dict[str, np.ndarray]:
+        for handle in [*self.handles.values(), self.text]:
+            handle.close()
+        arrays = {}
+        for name, dtype in self.NAMES.items():
+            path = self.paths[name]
+            arrays[name] = (np.memmap(path, dtype=dtype, mode="r") if path.stat().st_size
+                            else np.zeros(0, dtype=dtype))
+        return arrays
+
+
+def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Progress) -> BuildResult:
+    tags = recipe.tags
+    files = input_files(recipe)
+    hashes = {}
+    for source in files:
+        try:
+            hashes[source.display] = file_sha256(source.path)
+        except FileNotFoundError:
+            raise BivocabError(f"{source.display}: input file not found") from None
+        except OSError as exc:
+            raise BivocabError(f"{source.display}: cannot read input: {exc.strerror or exc}") from None
+
+    progress("scan")
+    scans = [LanguageScan(tag) for tag in tags]
+    writers = [_WorkArrays(work, tag) for tag in tags]
+    lang_of_file = [tags.index(f.language) for f in files]
+    per_file: list[Counter] = [Counter() for _ in files]
+    for result in ordered_map(scan_block, _scan_tasks(recipe, files), jobs):
+        li = lang_of_file[result.file_index]
+        scan = scans[li]
+        per_file[result.file_index].update(result.counters)
+        lut = scan.table.merge(result.local_types)
+        global_tokens = lut[result.tokens] if len(result.tokens) else np.zeros(0, np.uint32)
+        n_types = len(scan.table)
+        if scan.split_counts.shape[1] < n_types:
+            grown = np.zeros((3, max(n_types, 2 * scan.split_counts.shape[1])), dtype=np.int64)
+            grown[:, :scan.split_counts.shape[1]] = scan.split_counts
+            scan.split_counts = grown
+        token_splits = np.repeat(result.splits, result.lengths)
+        for s in range(3):
+            chosen = global_tokens[token_splits == s]
+            if len(chosen):
+                scan.split_counts[s, :n_types] += np.bincount(chosen, minlength=n_types)
+        scan.sentences += len(result.lengths)
+        scan.tokens += len(global_tokens)
+        writers[li].append(result, global_tokens)
+    arrays = [w.close() for w in writers]
+    for scan in scans:
+        scan.split_counts = scan.split_counts[:, :len(scan.table)]
+    if any(scan.sentences == 0 for scan in scans):
+        empty = next(s.tag for s in scans if s.sentences == 0)
+        raise BivocabError(f"{recipe.path}: language '{empty}' has no sentences after cleaning")
+
+    progress("vocabulary")
+    surfaces = [scan.table.surfaces for scan in scans]
+    vocabs = [build_vocabulary(cond, tags, surfaces, [scan.split_counts[0] for scan in scans])
+              for cond in recipe.conditions]
+
+    progress("shards")
+    written: list[str] = []
+    shard_paths: dict[str, dict[str, list[str]]] = {c.name: {} for c in recipe.conditions}
+    stats = {c.name: {s: [0, 0, [0] * len(tags), [0] * len(tags)] for s in SPLITS} for c in recipe.conditions}
+    starts = [np.concatenate(([0], np.cumsum(a["lengths"])[:-1])).astype(np.int64) if len(a["lengths"])
+              else np.zeros(0, np.int64) for a in arrays]
+    for si, split in enumerate(SPLITS):
+        rows = [np.flatnonzero(np.asarray(a["splits"]) == si) for a in arrays]
+        order = mix_split(si, rows, recipe.mix, recipe.seed)
+        for cond in recipe.conditions:
+            shard_paths[cond.name][split] = []
+        for shard_index, members in enumerate(_shard_members(order, arrays, recipe.shards.max_tokens)):
+            stem = shard_stem(split, shard_index)
+            langs = order.langs[members]
+            rows_here = order.rows[members]
+            prov = np.empty(len(members), dtype=PROVENANCE_DTYPE)
+            gathered = []
+            for li in range(len(tags)):
+                mask = langs == li
+                r = rows_here[mask]
+                prov["input"][mask] = np.asarray(arrays[li]["inputs"])[r]
+                prov["line"][mask] = np.asarray(arrays[li]["lines"])[r]
+                lengths = np.asarray(arrays[li]["lengths"])[r]
+                types = np.asarray(arrays[li]["tokens"])[ragged_gather(starts[li][r], lengths)]
+                gathered.append((mask, lengths, types))
+            path = f"provenance/{stem}.npy"
+            write_npy(out / path, prov)
+            written.append(path)
+            for cond, vocab in zip(recipe.conditions, vocabs):
+                paths = _write_condition_shard(out, cond.name, stem, vocab, langs, gathered,
+                                               stats[cond.name][split])
+                written += paths
+                shard_paths[cond.name][split].append(f"{cond.name}/{stem}")
+
+    progress("vocab files")
+    for cond, vocab in zip(recipe.conditions, vocabs):
+        path = f"{cond.name}/vocab.tsv"
+        atomic_write_text(out / path, vocab_tsv(vocab))
+        written.append(path)
+        for li, tag in enumerate(tags):
+            path = f"{cond.name}/tokenizer.{tag}.json"
+            atomic_write_text(out / path, tokenizer_json(vocab, li, recipe.clean))
+            written.append(path)
+    for scan in scans:
+        path = f"types/{scan.tag}.tsv"
+        atomic_write_text(out / path, types_tsv(scan))
+        written.append(path)
+
+    summaries = tuple(
+        ConditionSummary(cond.name, cond.policy, len(vocab), {
+            s: SplitSummary(v[0], v[1], tuple(v[2]), tuple(v[3])) for s, v in stats[cond.name].items()})
+        for cond, vocab in zip(recipe.conditions, vocabs))
+    manifest = _manifest(recipe, out, files, hashes, per_file, scans, vocabs, shard_paths, written, summaries)
+    atomic_write_text(out / MANIFEST, canonical_json(manifest))
+    return BuildResult(out, manifest, summaries)
+
+
+def _shard_members(order: SplitOrder, arrays: list[dict[str, np.ndarray]], max_tokens: int) -> Iterator[np.ndarray]:
+    """Positions (into the split order) of each shard's sentences. A shard holds the sentences
+    that start within its window of ``max_tokens`` tokens (end-of-sentence tokens not counted),
+    so shard boundaries are the same in every condition."""
+    if len(order.rows) == 0:
+        return
+    lengths = np.empty(len(order.rows), dtype=np.int64)
+    for li, a in enumerate(arrays):
+        mask = order.langs == li
+        lengths[mask] = np.asarray(a["lengths"])[order.rows[mask]]
+    begin = np.cumsum(lengths) - lengths
+    shard_of = begin // max_tokens
+    cuts = np.flatnonzero(np.diff(shard_of)) + 1
+    yield from np.split(np.arange(len(lengths)), cuts)
+
+
+def _write_condition_shard(out: Path, condition: str, stem: str, vocab: Vocabulary, langs: np.ndarray,
+                           gathered: list[tuple[np.ndarray, np.ndarray, np.ndarray]], stat: list) -> list[str]:
+    eos = vocab.eos_ids is not None
+    n = len(langs)
+    sent_len = np.empty(n, dtype=np.int64)
+    for mask, lengths, _ in gathered:
+        sent_len[mask] = lengths + (1 if eos else 0)
+    offsets = np.zeros(n + 1, dtype=np.int64)
+    np.cumsum(sent_len, out=offsets[1:])
+    tokens = np.empty(int(offsets[-1]), dtype=vocab.dtype)
+    for li, (mask, lengths, types) in enumerate(gathered):
+        ids = vocab.luts[li][types]
+        body = ragged_gather(offsets[:-1][mask], lengths)
+        tokens[body] = ids
+        if eos:
+            tokens[offsets[1:][mask] - 1] = vocab.eos_ids[li]
+        stat[2][li] += int((ids == vocab.unk_ids[li]).sum())
+        stat[3][li] += len(ids)
+    stat[0] += n
+    stat[1] += int(sum(len(t) for _, _, t in gathered))
+    paths = []
+    for suffix, array in (("tokens", tokens), ("offsets", offsets), ("langs", langs.astype(np.uint8))):
+        path = f"{condition}/{stem}.{suffix}.npy"
+        write_npy(out / path, array)
+        paths.append(path)
+    return paths
+
+
+def types_tsv(scan: LanguageScan) -> str:
+    """All token types of one language with their class and count per split, sorted by the
+    tie rule (train count descending, then code points)."""
+    counts = scan.split_counts
+    order = sorted(range(len(scan.table)), key=lambda i: (-int(counts[0, i]), scan.table.surfaces[i]))
+    lines = ["surface\tclass\tcount_train\tcount_valid\tcount_test"]
+    for i in order:
+        s = scan.table.surfaces[i]
+        lines.append(f"{s}\t{token_class(s)}\t{counts[0, i]}\t{counts[1, i]}\t{counts[2, i]}")
+    return "\n".join(lines) + "\n"
+
+
+def _manifest(recipe: Recipe, out: Path, files: list[InputFile], hashes: dict[str, str],
+              per_file: list[Counter], scans: list[LanguageScan], vocabs: list[Vocabulary],
+              shard_paths: dict[str, dict[str, list[str]]], written: list[str],
+              summaries: tuple[ConditionSummary, ...]) -> dict[str, Any]:
+    recipe_file = Path(recipe.path).resolve()
+    try:
+        recipe_sha = sha256_file(recipe_file)
+    except OSError:
+        recipe_sha = ""
+    inputs = [{"path": f.display, "language": f.language, "sha256": hashes[f.display],
+               "lines": int(per_file[i].get("lines_read", 0)),
+               "report": {k: int(v) for k, v in sorted(per_file[i].items())}}
+              for i, f in enumerate(files)]
+    conditions = {}
+    for cond, vocab, summary in zip(recipe.conditions, vocabs, summaries):
+        conditions[cond.name] = {
+            "policy": cond.policy, "classes": cond.classes, "vocab": f"{cond.name}/vocab.tsv",
+            "size": len(vocab), "specials": vocab.special_count,
+            "tokenizers": {t: f"{cond.name}/tokenizer.{t}.json" for t in recipe.tags},
+            "dtype": vocab.dtype.name, "shards": shard_paths[cond.name],
+            "stats": {s: {"sentences": v.sentences, "tokens": v.tokens,
+                          "oov": dict(zip(recipe.tags, v.oov)),
+                          "tokens_per_language": dict(zip(recipe.tags, v.tokens_per_lang))}
+                      for s, v in summary.splits.items()},
+        }
+    files_out = []
+    for path in sorted(set(written)):
+        p = out / path
+        files_out.append({"path": path, "sha256": sha256_file(p), "bytes": p.stat().st_size})
+    return {
+        "bivocab": __version__,
+        "recipe": recipe.resolved(),
+        "recipe_file": os.path.relpath(recipe_file, out.resolve()),
+        "recipe_sha256": recipe_sha,
+        "inputs": inputs,
+        "environment": environment(),
+        "languages": {s.tag: {"sentences": s.sentences, "tokens": s.tokens, "types": len(s.table),
+                              "types_file": f"types/{s.tag}.tsv"} for s in scans},
+        "conditions": conditions,
+        "files": files_out,
+    }

@@ -1,0 +1,126 @@
+"""Cleaning: decode, normalise and filter the lines of a block; every change is counted.
+
+Order of steps (each one documented in docs/cleaning.md):
+1. decode UTF-8 (error with file, line and byte offset; or replace with U+FFFD; or skip the line);
+2. control characters (C0/C1 except TAB, and NUL) become a space;
+3. every Unicode White_Space character becomes a space, runs collapse to one, ends are stripped;
+4. Unicode normal form (NFC by default, NFKC, or none), then optional lowercasing;
+5. empty lines are dropped; lines longer than ``max_chars`` are dropped.
+"""
+
+from __future__ import annotations
+
+import re
+import unicodedata
+from collections import Counter
+from dataclasses import dataclass
+
+from .errors import InputError
+from .recipe import CleanSpec
+from .sources import Block
+
+# Unicode White_Space (PropList.txt) minus LF, plus the separators str.isspace() also accepts.
+_SPACE_RE = re.compile(
+    "[\t\x0b\x0c\x1c-\x1f \x85\xa0\u1680\u2000-\u200a\u2028\u2029\u202f\u205f\u3000]+")
+_CONTROL_RE = re.compile("[\x00-\x08\x0e-\x1b\x7f-\x84\x86-\x9f]")
+_MULTI_SPACE_RE = re.compile(" {2,}")
+_EDGE_SPACE_RE = re.compile("^ | $", re.MULTILINE)
+
+
+@dataclass(frozen=True)
+class CleanLines:
+    """The kept lines of a block, with their 1-based line numbers in the input file."""
+
+    lines: list[str]
+    line_numbers: list[int]
+    counters: Counter
+
+
+def normalise_lines(text: str, spec: CleanSpec) -> str:
+    """Clean LF-separated lines (steps 2-4 above) in one pass over the whole text.
+
+    Working on a whole block is exact: LF never composes in NFC/NFKC, and the other steps
+    never cross a line break.
+    """
+    text = _CONTROL_RE.sub(" ", text)
+    text = _SPACE_RE.sub(" ", text)
+    if spec.normal_form != "none":
+        text = unicodedata.normalize(spec.normal_form, text)
+        if spec.normal_form == "NFKC":  # compatibility spaces (U+2000..) may appear again
+            text = _SPACE_RE.sub(" ", text)
+    text = _MULTI_SPACE_RE.sub(" ", text)
+    text = _EDGE_SPACE_RE.sub("", text)
+    if spec.lowercase:
+        text = text.lower()
+    return text
+
+
+def normalise_text(text: str, spec: CleanSpec) -> str:
+    """Clean one piece of text exactly as an input line is cleaned.
+
+    >>> normalise_text("  Cafe\u0301\tcrème ", CleanSpec())
+    'Café crème'
+    """
+    return normalise_lines(text.replace("\n", " ").replace("\r", " "), spec)
+
+
+def _decode(block: Block, spec: CleanSpec, display: str, counters: Counter) -> list[str | None]:
+    """Decode a block into lines; a line that is skipped for invalid UTF-8 becomes None."""
+    try:
+        return block.data.decode("utf-8").split("\n")
+    except UnicodeDecodeError as exc:
+        if spec.invalid_utf8 == "error":
+            line_start = block.data.rfind(b"\n", 0, exc.start) + 1
+            line = block.first_line + block.data.count(b"\n", 0, exc.start)
+            raise InputError(
+                f"{display}:{line}: invalid UTF-8 at byte {exc.start - line_start} of the line "
+                f"(byte value 0x{block.data[exc.start]:02x}); set [clean] invalid_utf8 = "
+                f"\"replace\" or \"skip\" to accept it") from None
+    out: list[str | None] = []
+    for raw in block.data.split(b"\n"):
+        try:
+            out.append(raw.decode("utf-8"))
+        except UnicodeDecodeError:
+            if spec.invalid_utf8 == "replace":
+                counters["invalid_utf8_replaced_lines"] += 1
+                out.append(raw.decode("utf-8", errors="replace"))
+            else:
+                counters["invalid_utf8_skipped_lines"] += 1
+                out.append(None)
+    return out
+
+
+def clean_block(block: Block, spec: CleanSpec, display: str) -> CleanLines:
+    """Decode and clean the lines of one block (see the module docstring for the steps)."""
+    counters: Counter = Counter()
+    counters["lines_read"] += block.line_count
+    if block.bom_removed:
+        counters["byte_order_marks_removed"] += 1
+    if block.cr_line_ends:
+        counters["cr_line_ends"] += block.cr_line_ends
+    decoded = _decode(block, spec, display, counters)
+    present = [(offset, raw) for offset, raw in enumerate(decoded) if raw is not None] \
+        if None in decoded else list(enumerate(decoded))
+    raw_text = "\n".join(raw for _, raw in present)
+    if "\x00" in raw_text:
+        counters["nul_characters"] += raw_text.count("\x00")
+    controls = len(_CONTROL_RE.findall(raw_text))
+    if controls:
+        counters["control_characters_replaced"] += controls
+    cleaned = normalise_lines(raw_text, spec).split("\n")
+    kept: list[str] = []
+    numbers: list[int] = []
+    changed = 0
+    for (offset, raw), text in zip(present, cleaned):
+        if not text:
+            counters["empty_lines_dropped"] += 1
+            continue
+        if spec.max_chars and len(text) > spec.max_chars:
+            counters["too_long_dropped"] += 1
+            continue
+        changed += text != raw
+        kept.append(text)
+        numbers.append(block.first_line + offset)
+    if changed:
+        counters["lines_changed_by_cleaning"] += changed
+    return CleanLines(kept, numbers, counters)

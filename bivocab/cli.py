@@ -1,0 +1,76 @@
+"""Command line: thin click commands over the library; user mistakes are one line, exit 2."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import click
+
+from . import __version__
+from .errors import BivocabError
+
+
+class _Group(click.Group):
+    def invoke(self, ctx: click.Context):
+        try:
+            return super().invoke(ctx)
+        except BivocabError as exc:
+            click.echo(f"error: {exc}", err=True)
+            ctx.exit(exc.exit_code)
+
+
+@click.group(cls=_Group)
+@click.version_option(__version__, prog_name="bivocab")
+def main() -> None:
+    """Build, measure and reproduce vocabularies for bilingual language models."""
+
+
+@main.command()
+@click.argument("directory", type=click.Path(file_okay=False, path_type=Path))
+def init(directory: Path) -> None:
+    """Write a commented starter recipe into DIRECTORY/recipe.toml."""
+    from .recipe import STARTER_RECIPE
+
+    target = directory / "recipe.toml"
+    if target.exists():
+        raise BivocabError(f"{target}: already exists; not overwriting it")
+    try:
+        directory.mkdir(parents=True, exist_ok=True)
+        target.write_text(STARTER_RECIPE, encoding="utf-8")
+    except OSError as exc:
+        raise BivocabError(f"{target}: cannot write: {exc.strerror}") from None
+    click.echo(f"wrote {target}; edit the inputs, then run: bivocab check {target}")
+
+
+@main.command()
+@click.argument("recipe", type=click.Path(dir_okay=False, path_type=Path))
+def check(recipe: Path) -> None:
+    """Validate RECIPE and its inputs and print the build plan."""
+    from .recipe import load_recipe
+    from .report import check_inputs, plan_text
+
+    loaded = load_recipe(recipe)
+    click.echo(plan_text(loaded, check_inputs(loaded)))
+    click.echo("ok: recipe and inputs are valid")
+
+
+@main.command(name="build")
+@click.argument("recipe", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--out", "out", required=True, type=click.Path(path_type=Path), help="Build directory.")
+@click.option("--jobs", default=1, show_default=True, type=click.IntRange(min=1), help="Worker processes.")
+@click.option("--force", is_flag=True, help="Replace a directory that holds something else.")
+@click.option("--quiet", is_flag=True, help="Print nothing but errors.")
+def build_command(recipe: Path, out: Path, jobs: int, force: bool, quiet: bool) -> None:
+    """Build every condition of RECIPE into OUT."""
+    from .build import build
+    from .report import summary_text
+
+    show = (lambda stage: click.echo(f"[{stage}]", err=True)) if not quiet and sys.stderr.isatty() else (lambda _: None)
+    result = build(recipe, out, jobs=jobs, force=force, progress=show)
+    if not quiet:
+        click.echo(summary_text(result))
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,415 @@
+"""Recipe: the TOML file that fully describes a build, parsed into frozen dataclasses.
+
+Every option has its default here and nowhere else.  Unknown keys, wrong types and bad values
+are errors that name the file, the line and the key.
+"""
+
+from __future__ import annotations
+
+import glob
+import math
+import os
+import re
+import tomllib
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Any, Callable
+
+import langcodes
+
+from .errors import InputError, RecipeError
+
+POLICIES: dict[str, dict[str, str]] = {
+    # class -> "shared" | "tagged"   (DESIGN.md section 2, contract names)
+    "shared": {"word": "shared", "number": "shared", "punct": "shared", "symbol": "shared"},
+    "word-tagged": {"word": "tagged", "number": "tagged", "punct": "shared", "symbol": "shared"},
+    "fully-tagged": {"word": "tagged", "number": "tagged", "punct": "tagged", "symbol": "tagged"},
+}
+SPLITS: tuple[str, ...] = ("train", "valid", "test")
+
+
+@dataclass(frozen=True)
+class LanguageSpec:
+    tag: str
+    inputs: tuple[str, ...]           # globs as written, relative to the recipe directory
+    files: tuple[str, ...] = ()       # resolved, sorted, relative to the recipe directory
+
+
+@dataclass(frozen=True)
+class CleanSpec:
+    normal_form: str = "NFC"          # NFC | NFKC | none
+    lowercase: bool = False
+    invalid_utf8: str = "error"       # error | replace | skip
+    max_chars: int = 0                # 0 = no limit; longer sentences are dropped (counted)
+    min_tokens: int = 1
+    max_tokens: int = 0               # 0 = no limit
+
+
+@dataclass(frozen=True)
+class SplitSpec:
+    train: float = 0.8
+    valid: float = 0.1
+    test: float = 0.1
+
+
+@dataclass(frozen=True)
+class VocabSpec:
+    max_size: int = 0                 # 0 = no cap; the cap counts the specials
+    min_count: int = 1
+    unknown: str = "shared"           # shared | per-language
+    eos: str = "shared"               # shared | per-language | none
+    pad: bool = True                  # reserve id 0 for <pad>
+
+
+@dataclass(frozen=True)
+class MixSpec:
+    order: str = "shuffled"           # shuffled
+
+
+@dataclass(frozen=True)
+class ShardSpec:
+    format: str = "npy"
+    max_tokens: int = 1_000_000       # a shard is closed after the sentence that reaches this
+
+
+@dataclass(frozen=True)
+class ConditionSpec:
+    name: str
+    policy: str
+    classes: dict[str, str]           # resolved class -> shared | tagged
+    share: tuple[str, ...] = ()       # spellings forced to one entry
+    separate: tuple[str, ...] = ()    # spellings forced to one entry per language
+    vocab: VocabSpec = field(default_factory=VocabSpec)
+
+
+@dataclass(frozen=True)
+class Recipe:
+    path: str                         # the recipe file as given
+    name: str
+    seed: int
+    languages: tuple[LanguageSpec, ...]
+    clean: CleanSpec
+    splits: SplitSpec
+    vocab: VocabSpec
+    mix: MixSpec
+    shards: ShardSpec
+    conditions: tuple[ConditionSpec, ...]
+
+    @property
+    def base_dir(self) -> Path:
+        return Path(self.path).resolve().parent
+
+    @property
+    def tags(self) -> tuple[str, ...]:
+        return tuple(lang.tag for lang in self.languages)
+
+    def resolved(self) -> dict[str, Any]:
+        """The recipe with every default filled in, as recorded in build.json."""
+        data = asdict(self)
+        data.pop("path")
+        return data
+
+
+# --- parsing -----------------------------------------------------------------------------------
+
+_HEADER_RE = re.compile(r"^\s*(\[\[?)\s*([^\]]+?)\s*\]\]?")
+
+
+def _key_line(text: str, table: str, index: int, key: str) -> int | None:
+    """Line (1-based) where ``key`` is set inside the ``index``-th occurrence of ``table``."""
+    current, seen = "", {}
+    key_re = re.compile(r"^\s*(?:\"?" + re.escape(key) + r"\"?)\s*=")
+    for number, line in enumerate(text.splitlines(), start=1):
+        header = _HEADER_RE.match(line)
+        if header:
+            current = header.group(2).strip()
+            seen[current] = seen.get(current, -1) + 1
+            if key == "" and current == table and seen[current] == index:
+                return number
+            continue
+        if current == table and seen.get(current, 0) == index and key and key_re.match(line):
+            return number
+    return None
+
+
+class _Reader:
+    """Walks the parsed TOML, checks keys and types, and reports errors with their line."""
+
+    def __init__(self, path: str, text: str, data: dict[str, Any]):
+        self.path, self.text, self.data = path, text, data
+
+    def fail(self, table: str, index: int, key: str, problem: str) -> RecipeError:
+        line = _key_line(self.text, table, index, key) or _key_line(self.text, table, index, "")
+        place = f"{self.path}:{line}" if line else self.path
+        label = f"[{table}] {key}".strip() if key else f"[{table}]"
+        return RecipeError(f"{place}: {label}: {problem}")
+
+    def table(self, name: str, allowed: dict[str, Any], index: int = 0,
+              value: dict[str, Any] | None = None, required: tuple[str, ...] = ()) -> dict[str, Any]:
+        raw = self.data.get(name, {}) if value is None else value
+        if not isinstance(raw, dict):
+            raise self.fail(name, index, "", "must be a table")
+        out: dict[str, Any] = {}
+        for key, val in raw.items():
+            if key not in allowed:
+                known = ", ".join(sorted(allowed))
+                raise self.fail(name, index, key, f"unknown key (known keys: {known})")
+            out[key] = self.typed(name, index, key, val, allowed[key])
+        for key in required:
+            if key not in raw:
+                raise self.fail(name, index, "", f"missing required key '{key}'")
+        return out
+
+    def typed(self, table: str, index: int, key: str, val: Any, kind: Any) -> Any:
+        if kind is float and isinstance(val, int) and not isinstance(val, bool):
+            val = float(val)
+        if kind == "strings":
+            if not isinstance(val, list) or not all(isinstance(v, str) for v in val):
+                raise self.fail(table, index, key, f"expected a list of strings, got {_describe(val)}")
+            return tuple(val)
+        if kind == "table":
+            if not isinstance(val, dict):
+                raise self.fail(table, index, key, f"expected a table, got {_describe(val)}")
+            return val
+        if isinstance(kind, tuple):  # a choice of strings
+            if not isinstance(val, str) or val not in kind:
+                raise self.fail(table, index, key, f"expected one of {', '.join(map(repr, kind))}, got {val!r}")
+            return val
+        if kind is int and isinstance(val, bool) or not isinstance(val, kind):
+            raise self.fail(table, index, key, f"expected {kind.__name__}, got {_describe(val)}")
+        return val
+
+
+def _describe(val: Any) -> str:
+    return f"{type(val).__name__} {val!r}"[:80]
+
+
+_CLASS_CHOICE = ("shared", "tagged")
+_VOCAB_KEYS: dict[str, Any] = {
+    "max_size": int, "min_count": int, "unknown": ("shared", "per-language"),
+    "eos": ("shared", "per-language", "none"), "pad": bool,
+}
+
+
+def is_valid_language_tag(tag: str) -> bool:
+    """BCP 47 (RFC 5646) well-formedness and validity, checked by the langcodes library."""
+    try:
+        return langcodes.tag_is_valid(tag)
+    except Exception:  # langcodes raises on some malformed input instead of returning False
+        return False
+
+
+def load_recipe(path: str | os.PathLike[str], resolve_inputs: bool = True) -> Recipe:
+    """Read and validate a recipe file; with ``resolve_inputs`` also expand the input globs.
+
+    Raises :class:`RecipeError` (or :class:`InputError` for inputs) with a one-line message.
+    """
+    path = str(path)
+    try:
+        raw_bytes = Path(path).read_bytes()
+    except FileNotFoundError:
+        raise RecipeError(f"{path}: recipe file not found") from None
+    except OSError as exc:
+        raise RecipeError(f"{path}: cannot read recipe: {exc.strerror}") from None
+    try:
+        text = raw_bytes.decode("utf-8")
+        data = tomllib.loads(text)
+    except UnicodeDecodeError as exc:
+        raise RecipeError(f"{path}: recipe is not valid UTF-8 (byte {exc.start})") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise RecipeError(f"{path}: invalid TOML: {exc}") from None
+
+    r = _Reader(path, text, data)
+    top_allowed = {"build", "languages", "clean", "splits", "vocab", "mix", "shards", "condition"}
+    for key in data:
+        if key not in top_allowed:
+            raise r.fail(key, 0, "", f"unknown table (known tables: {', '.join(sorted(top_allowed))})")
+    if "build" not in data:
+        raise RecipeError(f"{path}: missing table [build]")
+    build = r.table("build", {"name": str, "seed": int}, required=("name", "seed"))
+    if not build["name"].strip():
+        raise r.fail("build", 0, "name", "must not be empty")
+
+    languages = _read_languages(r, path)
+    clean = CleanSpec(**r.table("clean", {
+        "normal_form": ("NFC", "NFKC", "none"), "lowercase": bool,
+        "invalid_utf8": ("error", "replace", "skip"), "max_chars": int,
+        "min_tokens": int, "max_tokens": int}))
+    for key in ("max_chars", "min_tokens", "max_tokens"):
+        if getattr(clean, key) < 0:
+            raise r.fail("clean", 0, key, "must be >= 0")
+
+    splits = SplitSpec(**r.table("splits", {"train": float, "valid": float, "test": float}))
+    fractions = (splits.train, splits.valid, splits.test)
+    if any(f < 0 for f in fractions) or not math.isclose(sum(fractions), 1.0, abs_tol=1e-9):
+        raise r.fail("splits", 0, "", f"fractions must be >= 0 and add up to 1 (they add up to {sum(fractions)})")
+    if splits.train <= 0:
+        raise r.fail("splits", 0, "train", "must be > 0: the vocabulary is counted on train")
+
+    vocab = _vocab_spec(r, "vocab", 0, r.table("vocab", _VOCAB_KEYS), VocabSpec())
+    mix = MixSpec(**r.table("mix", {"order": ("shuffled",)}))
+    shards = ShardSpec(**r.table("shards", {"format": ("npy",), "max_tokens": int}))
+    if shards.max_tokens <= 0:
+        raise r.fail("shards", 0, "max_tokens", "must be > 0")
+
+    conditions = _read_conditions(r, path, vocab)
+    recipe = Recipe(path=path, name=build["name"], seed=build["seed"], languages=languages,
+                    clean=clean, splits=splits, vocab=vocab, mix=mix, shards=shards,
+                    conditions=conditions)
+    if resolve_inputs:
+        recipe = resolve_recipe_inputs(recipe)
+    return recipe
+
+
+def _vocab_spec(r: _Reader, table: str, index: int, values: dict[str, Any], base: VocabSpec) -> VocabSpec:
+    spec = VocabSpec(**{**asdict(base), **values})
+    if spec.max_size < 0:
+        raise r.fail(table, index, "max_size", "must be >= 0 (0 = no cap)")
+    if spec.min_count < 1:
+        raise r.fail(table, index, "min_count", "must be >= 1")
+    return spec
+
+
+def _read_languages(r: _Reader, path: str) -> tuple[LanguageSpec, ...]:
+    raw = r.data.get("languages")
+    if not isinstance(raw, dict) or not raw:
+        raise RecipeError(f"{path}: missing table [languages.<tag>] (two languages are needed)")
+    out = []
+    for tag, spec in raw.items():
+        table = f"languages.{tag}"
+        if not is_valid_language_tag(tag):
+            raise r.fail(table, 0, "", f"'{tag}' is not a valid BCP 47 language tag")
+        values = r.table(table, {"inputs": "strings"}, value=spec, required=("inputs",))
+        if not values["inputs"]:
+            raise r.fail(table, 0, "inputs", "must list at least one file or glob")
+        out.append(LanguageSpec(tag=tag, inputs=values["inputs"]))
+    if len(out) != 2:
+        raise RecipeError(f"{path}: [languages] must define exactly two languages, found {len(out)}")
+    if out[0].tag.lower() == out[1].tag.lower():
+        raise RecipeError(f"{path}: the two language tags must differ")
+    return tuple(out)
+
+
+def _read_conditions(r: _Reader, path: str, vocab: VocabSpec) -> tuple[ConditionSpec, ...]:
+    raw = r.data.get("condition")
+    if raw is None:
+        raise RecipeError(f"{path}: missing [[condition]] table (at least one condition is needed)")
+    if not isinstance(raw, list):
+        raise r.fail("condition", 0, "", "must be written as [[condition]] (an array of tables)")
+    allowed = {"name": str, "policy": tuple(POLICIES), "classes": "table",
+               "share": "strings", "separate": "strings", **_VOCAB_KEYS}
+    out: list[ConditionSpec] = []
+    seen: dict[str, int] = {}
+    for index, spec in enumerate(raw):
+        values = r.table("condition", allowed, index=index, value=spec, required=("name", "policy"))
+        name = values["name"]
+        if not re.fullmatch(r"[A-Za-z0-9][A-Za-z0-9._-]*", name):
+            raise r.fail("condition", index, "name",
+                         f"'{name}' must be letters, digits, '.', '_' or '-' (it names a directory)")
+        if name in seen:
+            raise r.fail("condition", index, "name", f"duplicate condition name '{name}'")
+        seen[name] = index
+        classes = dict(POLICIES[values["policy"]])
+        for cls, choice in values.get("classes", {}).items():
+            if cls not in classes:
+                raise r.fail("condition", index, "classes", f"unknown token class '{cls}' (known: {', '.join(classes)})")
+            if choice not in _CLASS_CHOICE:
+                raise r.fail("condition", index, "classes", f"class '{cls}' must be 'shared' or 'tagged', got {choice!r}")
+            classes[cls] = choice
+        share, separate = values.get("share", ()), values.get("separate", ())
+        both = sorted(set(share) & set(separate))
+        if both:
+            raise r.fail("condition", index, "separate", f"spelling {both[0]!r} is both in share and separate")
+        cond_vocab = _vocab_spec(r, "condition", index,
+                                 {k: v for k, v in values.items() if k in _VOCAB_KEYS}, vocab)
+        out.append(ConditionSpec(name=name, policy=values["policy"], classes=classes,
+                                 share=tuple(sorted(set(share))), separate=tuple(sorted(set(separate))),
+                                 vocab=cond_vocab))
+    if not out:
+        raise RecipeError(f"{path}: at least one [[condition]] is needed")
+    return tuple(out)
+
+
+def resolve_recipe_inputs(recipe: Recipe) -> Recipe:
+    """Expand each language's globs into a sorted file list; a glob matching nothing is an error."""
+    base = recipe.base_dir
+    languages = []
+    for lang in recipe.languages:
+        files: list[str] = []
+        for pattern in lang.inputs:
+            absolute = pattern if os.path.isabs(pattern) else str(base / pattern)
+            try:
+                matches = sorted(glob.glob(absolute, recursive=True))
+            except (OSError, RecursionError) as exc:
+                raise InputError(f"{recipe.path}: [languages.{lang.tag}] inputs: cannot expand {pattern!r}: {exc}") from None
+            matches = [m for m in matches if not os.path.isdir(m)]
+            if not matches:
+                raise InputError(f"{recipe.path}: [languages.{lang.tag}] inputs: {pattern!r} matches no file")
+            for m in matches:
+                rel = os.path.relpath(m, base)
+                if rel not in files:
+                    files.append(rel)
+        languages.append(LanguageSpec(tag=lang.tag, inputs=lang.inputs, files=tuple(files)))
+    return Recipe(**{**{f: getattr(recipe, f) for f in recipe.__dataclass_fields__}, "languages": tuple(languages)})
+
+
+STARTER_RECIPE = '''\
+# bivocab recipe: one file describes the whole build. Paths are relative to this file.
+# Check it with `bivocab check recipe.toml`, build with `bivocab build recipe.toml --out build`.
+
+[build]
+name = "my-study"        # names the build; recorded in build.json
+seed = 1                 # the only source of randomness (splits, mixing)
+
+# Exactly two languages; each key is a BCP 47 tag. Inputs are globs of UTF-8 text files,
+# one sentence per line (.txt, or compressed .gz / .bz2 / .xz / .zst).
+[languages.en]
+inputs = ["corpus/en/*.txt"]
+
+[languages.de]
+inputs = ["corpus/de/*.txt"]
+
+[clean]
+normal_form = "NFC"      # NFC | NFKC | none
+lowercase = false        # true folds case before counting (then "Kind" and "kind" meet)
+invalid_utf8 = "error"   # error | replace (U+FFFD) | skip (drop the line); all counted
+max_chars = 0            # drop sentences longer than this many characters (0 = keep all)
+min_tokens = 1           # drop sentences with fewer tokens
+max_tokens = 0           # drop sentences with more tokens (0 = keep all)
+
+[splits]                 # a sentence's split depends only on its normalised text and the seed
+train = 0.8
+valid = 0.1
+test = 0.1
+
+[vocab]                  # defaults for every condition; a condition may override any of these
+max_size = 0             # 0 = no cap; the cap includes the special tokens
+min_count = 1            # training count needed for an entry
+unknown = "shared"       # shared: one <unk>; per-language: <unk:en>, <unk:de>
+eos = "shared"           # shared | per-language | none: the end-of-sentence token after each sentence
+pad = true               # reserve id 0 for <pad>
+
+[mix]
+order = "shuffled"       # the two languages are shuffled together (seeded), same order in every condition
+
+[shards]
+format = "npy"
+max_tokens = 1000000     # tokens per shard file (a shard ends after the sentence that reaches it)
+
+# One [[condition]] per vocabulary-sharing condition, all built from the same corpus.
+# policy: shared | word-tagged | fully-tagged
+[[condition]]
+name = "shared"
+policy = "shared"
+
+[[condition]]
+name = "word-tagged"
+policy = "word-tagged"
+
+[[condition]]
+name = "fully-tagged"
+policy = "fully-tagged"
+# classes = { number = "shared" }   # override the policy for single token classes
+# share = ["Hotel", "Radio"]        # force these spellings to one shared entry
+# separate = ["also", "bald"]       # force these spellings to one entry per language
+'''

@@ -1,0 +1,68 @@
+"""Terminal reports: the build plan (``check``) and the build summary table."""
+
+from __future__ import annotations
+
+import os
+
+from .build import BuildResult, input_files
+from .clean import clean_block
+from .recipe import SPLITS, Recipe
+from .sources import read_blocks
+
+
+def check_inputs(recipe: Recipe) -> list[tuple[str, str, int, int]]:
+    """Read every input once (decode and clean, nothing written): (language, path, bytes, lines).
+    Raises the same one-line errors a build would."""
+    rows = []
+    for index, source in enumerate(input_files(recipe)):
+        lines = 0
+        for block in read_blocks(source, index):
+            lines += len(clean_block(block, recipe.clean, source.display).lines)
+        rows.append((source.language, source.display, os.path.getsize(source.path), lines))
+    return rows
+
+
+def plan_text(recipe: Recipe, inputs: list[tuple[str, str, int, int]]) -> str:
+    out = [f"recipe {recipe.path}: build '{recipe.name}', seed {recipe.seed}", "inputs:"]
+    for lang, path, size, lines in inputs:
+        out.append(f"  {lang:<8} {path}  ({size:,} bytes, {lines:,} sentences after cleaning)")
+    c = recipe.clean
+    out.append(f"cleaning: {c.normal_form}, lowercase={str(c.lowercase).lower()}, invalid UTF-8: {c.invalid_utf8}, "
+               f"tokens per sentence {c.min_tokens}..{c.max_tokens or 'any'}, max chars {c.max_chars or 'any'}")
+    s = recipe.splits
+    out.append(f"splits: train {s.train:g} / valid {s.valid:g} / test {s.test:g} (by seeded hash of the sentence)")
+    out.append(f"mixing: {recipe.mix.order}; shards: {recipe.shards.format}, {recipe.shards.max_tokens:,} tokens each")
+    out.append("conditions:")
+    for cond in recipe.conditions:
+        v = cond.vocab
+        classes = " ".join(f"{k}={val}" for k, val in cond.classes.items())
+        extra = []
+        if cond.share:
+            extra.append(f"share {len(cond.share)} spellings")
+        if cond.separate:
+            extra.append(f"separate {len(cond.separate)} spellings")
+        out.append(f"  {cond.name:<16} {cond.policy:<13} {classes}; max_size {v.max_size or 'none'}, "
+                   f"min_count {v.min_count}, unknown {v.unknown}, eos {v.eos}"
+                   + (f"; {', '.join(extra)}" if extra else ""))
+    return "\n".join(out)
+
+
+def summary_text(result: BuildResult) -> str:
+    """Per condition: policy, vocabulary size, sentences and tokens per split, OOV rate per language."""
+    tags = result.manifest["recipe"]["languages"]
+    tags = [t["tag"] for t in tags]
+    header = ["condition", "policy", "vocab", "split", "sentences", "tokens"] + [f"OOV {t}" for t in tags]
+    rows = [header]
+    for c in result.summaries:
+        for i, split in enumerate(SPLITS):
+            s = c.splits[split]
+            oov = [f"{100 * o / n:.2f}%" if n else "-" for o, n in zip(s.oov, s.tokens_per_lang)]
+            rows.append([c.name if i == 0 else "", c.policy if i == 0 else "", f"{c.size:,}" if i == 0 else "",
+                         split, f"{s.sentences:,}", f"{s.tokens:,}", *oov])
+    widths = [max(len(r[i]) for r in rows) for i in range(len(header))]
+    lines = []
+    for j, r in enumerate(rows):
+        lines.append("  ".join(cell.ljust(w) if k < 4 else cell.rjust(w) for k, (cell, w) in enumerate(zip(r, widths))).rstrip())
+        if j == 0:
+            lines.append("  ".join("-" * w for w in widths))
+    return f"build written to {result.out}\n" + "\n".join(lines)

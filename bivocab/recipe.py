@@ -413,3 +413,20 @@ policy = "fully-tagged"
 # share = ["Hotel", "Radio"]        # force these spellings to one shared entry
 # separate = ["also", "bald"]       # force these spellings to one entry per language
 '''
+
+
+def recipe_from_manifest(manifest: dict[str, Any], out: str | os.PathLike[str]) -> Recipe:
+    """Rebuild the resolved :class:`Recipe` recorded in a build's ``build.json``.
+
+    Input files are located relative to the recipe file recorded in ``recipe_file`` (a path
+    relative to the build directory), so a project moved as a whole still resolves."""
+    data = manifest["recipe"]
+    recipe_path = os.path.normpath(os.path.join(str(out), manifest["recipe_file"]))
+    conditions = tuple(ConditionSpec(**{**c, "share": tuple(c["share"]), "separate": tuple(c["separate"]),
+                                        "vocab": VocabSpec(**c["vocab"])}) for c in data["conditions"])
+    languages = tuple(LanguageSpec(tag=l["tag"], inputs=tuple(l["inputs"]), files=tuple(l["files"]))
+                      for l in data["languages"])
+    return Recipe(path=recipe_path, name=data["name"], seed=data["seed"], languages=languages,
+                  clean=CleanSpec(**data["clean"]), splits=SplitSpec(**data["splits"]),
+                  vocab=VocabSpec(**data["vocab"]), mix=MixSpec(**data["mix"]),
+                  shards=ShardSpec(**data["shards"]), conditions=conditions)

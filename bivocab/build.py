@@ -7,8 +7,12 @@ work directory); every word-level condition is then a lookup table applied with 
 from __future__ import annotations
 
 import contextlib
+import functools
+import gc
 import os
 import shutil
+import time
+import uuid
 from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -22,7 +26,8 @@ from .manifest import (LOCK, MANIFEST, WORK, atomic_open, atomic_write_text, bui
                        canonical_json, environment, read_manifest, sha256_file)
 from .mix import SplitOrder, mix_split
 from .recipe import SPLITS, Recipe, load_recipe
-from .scan import ScanResult, ScanTask, TypeTable, ordered_map, ragged_gather, scan_block
+from .progress import BuildMeter
+from .scan import ScanResult, ScanTask, TypeTable, WorkerTypeMaps, ordered_map, ragged_gather, scan_block
 from .segment import token_class
 from .shards import PROVENANCE_DTYPE, shard_stem, write_npy
 from .sources import InputFile, file_sha256, read_blocks
@@ -66,7 +71,8 @@ class BuildResult:
     summaries: tuple[ConditionSummary, ...]
 
 
-Progress = Callable[[str], None]
+# A meter (timings, bars), or a function called with the name of each stage as it starts.
+Progress = BuildMeter | Callable[[str], None]
 
 
 def _quiet(_: str) -> None:
@@ -147,9 +153,10 @@ def _remove_stale(out: Path, previous: dict[str, Any] | None, manifest: dict[str
 
 def _scan_tasks(recipe: Recipe, files: list[InputFile]) -> Iterator[ScanTask]:
     thresholds = split_thresholds(recipe.splits)
+    session = uuid.uuid4().hex
     for index, source in enumerate(files):
         for block in read_blocks(source, index):
-            yield ScanTask(block, source.display, recipe.clean, recipe.seed, thresholds)
+            yield ScanTask(block, source.display, source.language, recipe.clean, recipe.seed, thresholds, session)
 
 
 class _WorkArrays:
@@ -169,7 +176,7 @@ class _WorkArrays:
         self.handles["lines"].write(result.line_numbers.astype(np.int64).tobytes())
         self.handles["inputs"].write(np.full(len(result.lengths), result.file_index, np.uint32).tobytes())
         if result.text:
-            self.text.write(result.text.encode("utf-8") + b"\n")
+            self.text.write(result.text + b"\n")
 
     def close(self) -> dict[str, np.ndarray]:
         for handle in [*self.handles.values(), self.text]:
@@ -182,42 +189,58 @@ class _WorkArrays:
         return arrays
 
 
+def _without_cyclic_gc(fn: Callable[..., BuildResult]) -> Callable[..., BuildResult]:
+    """Run ``fn`` with Python's cyclic garbage collector paused: a build allocates millions of
+    small acyclic objects (type tables, vocabulary entries), and repeated full collections
+    over them cost about as much as the work itself."""
+    @functools.wraps(fn)
+    def paused(*args: Any, **kwargs: Any) -> BuildResult:
+        was_enabled = gc.isenabled()
+        gc.disable()
+        try:
+            return fn(*args, **kwargs)
+        finally:
+            if was_enabled:
+                gc.enable()
+    return paused
+
+
+@_without_cyclic_gc
 def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Progress) -> BuildResult:
+    meter = progress if isinstance(progress, BuildMeter) else BuildMeter(on_stage=progress)
     tags = recipe.tags
     files = input_files(recipe)
     hashes = {}
-    for source in files:
-        try:
-            hashes[source.display] = file_sha256(source.path)
-        except FileNotFoundError:
-            raise BivocabError(f"{source.display}: input file not found") from None
-        except OSError as exc:
-            raise BivocabError(f"{source.display}: cannot read input: {exc.strerror or exc}") from None
+    with meter.stage("hash inputs", total=len(files), unit="files") as advance:
+        for source in files:
+            try:
+                hashes[source.display] = file_sha256(source.path)
+            except FileNotFoundError:
+                raise BivocabError(f"{source.display}: input file not found") from None
+            except OSError as exc:
+                raise BivocabError(f"{source.display}: cannot read input: {exc.strerror or exc}") from None
+            advance(1)
 
-    progress("scan")
     scans = [LanguageScan(tag) for tag in tags]
     writers = [_WorkArrays(work, tag) for tag in tags]
     lang_of_file = [tags.index(f.language) for f in files]
     per_file: list[Counter] = [Counter() for _ in files]
-    for result in ordered_map(scan_block, _scan_tasks(recipe, files), jobs):
-        li = lang_of_file[result.file_index]
-        scan = scans[li]
-        per_file[result.file_index].update(result.counters)
-        lut = scan.table.merge(result.local_types)
-        global_tokens = lut[result.tokens] if len(result.tokens) else np.zeros(0, np.uint32)
-        n_types = len(scan.table)
-        if scan.split_counts.shape[1] < n_types:
-            grown = np.zeros((3, max(n_types, 2 * scan.split_counts.shape[1])), dtype=np.int64)
-            grown[:, :scan.split_counts.shape[1]] = scan.split_counts
-            scan.split_counts = grown
-        token_splits = np.repeat(result.splits, result.lengths)
-        for s in range(3):
-            chosen = global_tokens[token_splits == s]
-            if len(chosen):
-                scan.split_counts[s, :n_types] += np.bincount(chosen, minlength=n_types)
-        scan.sentences += len(result.lengths)
-        scan.tokens += len(global_tokens)
-        writers[li].append(result, global_tokens)
+    plain = all(f.path.suffix.lower() not in (".gz", ".bz2", ".xz", ".lzma", ".zst") for f in files)
+    total_bytes = sum(os.path.getsize(f.path) for f in files) if plain else None
+    with meter.stage("scan", total=total_bytes, unit="B") as advance:
+        type_maps = WorkerTypeMaps()
+        for result in ordered_map(scan_block, _scan_tasks(recipe, files), jobs):
+            started = time.perf_counter()
+            li = lang_of_file[result.file_index]
+            scan = scans[li]
+            per_file[result.file_index].update(result.counters)
+            global_tokens = type_maps.global_ids(result, scan.table)
+            _count_by_split(scan, global_tokens, result)
+            writers[li].append(result, global_tokens)
+            for step, seconds in result.seconds.items():
+                meter.detail(f"workers: {step}", seconds)
+            meter.detail("merge, count, spill", time.perf_counter() - started)
+            advance(result.bytes_read, words=len(global_tokens))
     arrays = [w.close() for w in writers]
     for scan in scans:
         scan.split_counts = scan.split_counts[:, :len(scan.table)]
@@ -225,12 +248,14 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
         empty = next(s.tag for s in scans if s.sentences == 0)
         raise BivocabError(f"{recipe.path}: language '{empty}' has no sentences after cleaning")
 
-    progress("vocabulary")
     surfaces = [scan.table.surfaces for scan in scans]
-    vocabs = [build_vocabulary(cond, tags, surfaces, [scan.split_counts[0] for scan in scans])
-              for cond in recipe.conditions]
+    vocabs = []
+    with meter.stage("vocabulary", total=len(recipe.conditions), unit="conditions") as advance:
+        for cond in recipe.conditions:
+            vocabs.append(build_vocabulary(cond, tags, surfaces, [scan.split_counts[0] for scan in scans]))
+            advance(1)
 
-    progress("shards")
+    advance = meter.begin("shards", total=sum(s.sentences for s in scans), unit="sentences")
     written: list[str] = []
     shard_paths: dict[str, dict[str, list[str]]] = {c.name: {} for c in recipe.conditions}
     stats = {c.name: {s: [0, 0, [0] * len(tags), [0] * len(tags)] for s in SPLITS} for c in recipe.conditions}
@@ -263,8 +288,9 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
                                                stats[cond.name][split])
                 written += paths
                 shard_paths[cond.name][split].append(f"{cond.name}/{stem}")
+            advance(len(members), words=sum(len(t) for _, _, t in gathered))
 
-    progress("vocab files")
+    advance = meter.begin("vocab files", total=len(recipe.conditions), unit="conditions")
     for cond, vocab in zip(recipe.conditions, vocabs):
         path = f"{cond.name}/vocab.tsv"
         atomic_write_text(out / path, vocab_tsv(vocab))
@@ -273,6 +299,7 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
             path = f"{cond.name}/tokenizer.{tag}.json"
             atomic_write_text(out / path, tokenizer_json(vocab, li, recipe.clean))
             written.append(path)
+        advance(1)
     for scan in scans:
         path = f"types/{scan.tag}.tsv"
         atomic_write_text(out / path, types_tsv(scan))
@@ -282,9 +309,25 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
         ConditionSummary(cond.name, cond.policy, len(vocab), {
             s: SplitSummary(v[0], v[1], tuple(v[2]), tuple(v[3])) for s, v in stats[cond.name].items()})
         for cond, vocab in zip(recipe.conditions, vocabs))
+    meter.begin("manifest", total=None, unit="")
     manifest = _manifest(recipe, out, files, hashes, per_file, scans, vocabs, shard_paths, written, summaries)
     atomic_write_text(out / MANIFEST, canonical_json(manifest))
+    meter.end()
     return BuildResult(out, manifest, summaries)
+
+
+def _count_by_split(scan: LanguageScan, global_tokens: np.ndarray, result: ScanResult) -> None:
+    """Add a block's tokens to the per-split type counts (one bincount over type * 3 + split)."""
+    n_types = len(scan.table)
+    if scan.split_counts.shape[1] < n_types:
+        grown = np.zeros((3, max(n_types, 2 * scan.split_counts.shape[1])), dtype=np.int64)
+        grown[:, :scan.split_counts.shape[1]] = scan.split_counts
+        scan.split_counts = grown
+    if len(global_tokens):
+        keys = global_tokens.astype(np.int64) * 3 + np.repeat(result.splits, result.lengths)
+        scan.split_counts[:, :n_types] += np.bincount(keys, minlength=3 * n_types).reshape(n_types, 3).T
+    scan.sentences += len(result.lengths)
+    scan.tokens += len(global_tokens)
 
 
 def _shard_members(order: SplitOrder, arrays: list[dict[str, np.ndarray]], max_tokens: int) -> Iterator[np.ndarray]:

@@ -25,6 +25,11 @@ _SPACE_RE = re.compile(
 _CONTROL_RE = re.compile("[\x00-\x08\x0e-\x1b\x7f-\x84\x86-\x9f]")
 _MULTI_SPACE_RE = re.compile(" {2,}")
 _EDGE_SPACE_RE = re.compile("^ | $", re.MULTILINE)
+# Anything the two substitutions above would change other than a plain space: most blocks have
+# none, and scanning for it is several times cheaper than substituting every space.
+_ODD_SPACE_OR_CONTROL_RE = re.compile(
+    "[\x00-\x08\x0e-\x1b\x7f-\x84\x86-\x9f"
+    "\t\x0b\x0c\x1c-\x1f\x85\xa0\u1680\u2000-\u200a\u2028\u2029\u202f\u205f\u3000]")
 
 
 @dataclass(frozen=True)
@@ -42,14 +47,17 @@ def normalise_lines(text: str, spec: CleanSpec) -> str:
     Working on a whole block is exact: LF never composes in NFC/NFKC, and the other steps
     never cross a line break.
     """
-    text = _CONTROL_RE.sub(" ", text)
-    text = _SPACE_RE.sub(" ", text)
+    if _ODD_SPACE_OR_CONTROL_RE.search(text):
+        text = _CONTROL_RE.sub(" ", text)
+        text = _SPACE_RE.sub(" ", text)
     if spec.normal_form != "none":
         text = unicodedata.normalize(spec.normal_form, text)
         if spec.normal_form == "NFKC":  # compatibility spaces (U+2000..) may appear again
             text = _SPACE_RE.sub(" ", text)
-    text = _MULTI_SPACE_RE.sub(" ", text)
-    text = _EDGE_SPACE_RE.sub("", text)
+    if "  " in text:
+        text = _MULTI_SPACE_RE.sub(" ", text)
+    if text.startswith(" ") or text.endswith(" ") or "\n " in text or " \n" in text:
+        text = _EDGE_SPACE_RE.sub("", text)
     if spec.lowercase:
         text = text.lower()
     return text

@@ -61,13 +61,20 @@ def check(recipe: Path) -> None:
 @click.option("--jobs", default=1, show_default=True, type=click.IntRange(min=1), help="Worker processes.")
 @click.option("--force", is_flag=True, help="Replace a directory that holds something else.")
 @click.option("--quiet", is_flag=True, help="Print nothing but errors.")
-def build_command(recipe: Path, out: Path, jobs: int, force: bool, quiet: bool) -> None:
+@click.option("--profile", is_flag=True, help="Print the time spent in each stage (to stderr).")
+def build_command(recipe: Path, out: Path, jobs: int, force: bool, quiet: bool, profile: bool) -> None:
     """Build every condition of RECIPE into OUT."""
     from .build import build
+    from .progress import BuildMeter
     from .report import summary_text
 
-    show = (lambda stage: click.echo(f"[{stage}]", err=True)) if not quiet and sys.stderr.isatty() else (lambda _: None)
-    result = build(recipe, out, jobs=jobs, force=force, progress=show)
+    meter = BuildMeter(bars=not quiet and sys.stderr.isatty())
+    try:
+        result = build(recipe, out, jobs=jobs, force=force, progress=meter)
+    finally:
+        meter.close()
+    if profile:
+        click.echo(meter.profile_text(), err=True)
     if not quiet:
         click.echo(summary_text(result))
 

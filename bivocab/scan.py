@@ -1,17 +1,26 @@
 """First pass over the corpus: clean, segment and assign splits, block by block.
 
 Each block is turned into compact arrays (token type ids, sentence lengths, splits, line
-numbers); Python-level segmentation runs once per distinct whitespace-separated chunk of the
-block, not once per token.  Blocks may be processed in parallel; :class:`TypeTable` merges
-their local type ids in block order, so the result is the same whatever the number of jobs.
+numbers).  Python-level work runs once per distinct whitespace-separated chunk of the corpus
+per worker, not once per token or sentence: every worker process keeps, per language, a
+:class:`ChunkTable` of the chunks it has seen (their tokens as worker-local type ids and their
+split hashes), so a block costs a dictionary encode (pyarrow), one dictionary look-up per
+distinct chunk of the block, and numpy gathers.
+
+Determinism: a result carries the token types its worker had not reported before, in the
+order the worker first met them.  The parent merges results in block order, so every type is
+numbered by its first occurrence in the corpus, whatever the number of jobs.
 """
 
 from __future__ import annotations
 
+import gc
+import multiprocessing
+import os
+import time
 from collections import Counter
 from concurrent.futures import Future, ProcessPoolExecutor
 from dataclasses import dataclass
-import multiprocessing
 from typing import Callable, Iterable, Iterator, TypeVar
 
 import numpy as np
@@ -22,44 +31,135 @@ from .clean import clean_block
 from .recipe import CleanSpec
 from .segment import segment
 from .sources import Block
-from .splits import assign_splits
+from .splits import chunk_hashes, line_hashes, splits_of_hashes
 
 T = TypeVar("T")
 R = TypeVar("R")
+
+# Chunks that need no regex: letters of the Latin-1 and Latin Extended-A blocks (all of them
+# ALetter, each its own grapheme cluster), optionally followed by one closing punctuation
+# mark; segment() would return the letters as one word and the mark as one token.
+_LETTERS = "A-Za-z\u00c0-\u00d6\u00d8-\u00f6\u00f8-\u017f"
+_PLAIN_WORD = f"^[{_LETTERS}]+ $"
+_WORD_AND_MARK = f"^[{_LETTERS}]+[,.;:!?] $"
+
+# A worker forgets its chunks (not its types) beyond this many, so memory stays bounded on
+# corpora with very many distinct chunks; forgotten chunks are segmented again when met.
+MAX_CHUNKS = 2_000_000
 
 
 @dataclass(frozen=True)
 class ScanTask:
     block: Block
     display: str
+    language: str
     clean: CleanSpec
     seed: int
     thresholds: tuple[int, int]
+    session: str                # one value per build: workers reset their tables when it changes
     keep_text: bool = True
 
 
 @dataclass(frozen=True)
 class ScanResult:
     file_index: int
-    local_types: list[str]      # surfaces, indexed by the block-local type id
-    tokens: np.ndarray          # uint32 local type ids, all kept sentences concatenated
+    language: str
+    worker: int                 # process id of the worker; its type ids are local to it
+    new_types: list[str]        # surfaces of worker type ids not reported before, in id order
+    tokens: np.ndarray          # uint32 worker type ids, all kept sentences concatenated
     lengths: np.ndarray         # int64 tokens per kept sentence
     splits: np.ndarray          # uint8 split index per kept sentence
     line_numbers: np.ndarray    # int64 1-based line of each kept sentence
-    text: str                   # kept normalised sentences, LF-joined ("" unless keep_text)
+    text: bytes                 # kept normalised sentences, UTF-8, LF-joined (b"" unless keep_text)
     counters: Counter
+    seconds: dict[str, float]   # worker time per step: clean, segment, splits
+    bytes_read: int             # size of the block's raw data
 
 
-_chunk_cache: dict[str, tuple[str, ...]] = {}
+class _Growing:
+    """A numpy array that grows by doubling (amortised O(1) appends of slices)."""
+
+    def __init__(self, dtype: type) -> None:
+        self.data = np.zeros(1024, dtype=dtype)
+        self.size = 0
+
+    def extend(self, values: list[int]) -> None:
+        end = self.size + len(values)
+        if end > len(self.data):
+            grown = np.zeros(max(end, 2 * len(self.data)), dtype=self.data.dtype)
+            grown[:self.size] = self.data[:self.size]
+            self.data = grown
+        self.data[self.size:end] = values
+        self.size = end
 
 
-def _segment_chunk(chunk: str) -> tuple[str, ...]:
-    tokens = _chunk_cache.get(chunk)
-    if tokens is None:
-        if len(_chunk_cache) > 2_000_000:
-            _chunk_cache.clear()
-        tokens = _chunk_cache[chunk] = tuple(segment(chunk))
-    return tokens
+class ChunkTable:
+    """One worker's memory of one language: distinct chunks -> tokens (worker type ids) and
+    keyed chunk hashes; and the worker's type table (surface -> worker type id)."""
+
+    def __init__(self, seed: int) -> None:
+        self.seed = seed
+        self.types: dict[str, int] = {}
+        self.surfaces: list[str] = []
+        self.reported = 0
+        self.forget_chunks()
+
+    def forget_chunks(self) -> None:
+        self.chunks: dict[str, int] = {}
+        self.starts = _Growing(np.int64)
+        self.lengths = _Growing(np.int64)
+        self.hashes = _Growing(np.uint64)
+        self.flat = _Growing(np.uint32)
+
+    def add(self, chunks: list[str], kinds: list[int]) -> list[int]:
+        """Segment chunks not seen before (each ends with one space; kind 1 is a plain word,
+        2 a word and a mark, 0 anything else); return their chunk ids."""
+        types, surfaces, known = self.types, self.surfaces, self.chunks
+        ids, starts, lengths, flat = [], [], [], []
+        position = self.flat.size
+        for chunk, kind in zip(chunks, kinds):
+            if kind == 1:
+                tokens = [chunk[:-1]]
+            elif kind == 2:
+                tokens = [chunk[:-2], chunk[-2]]
+            else:
+                tokens = segment(chunk)
+            ids.append(known.setdefault(chunk, len(known)))
+            starts.append(position)
+            lengths.append(len(tokens))
+            for token in tokens:
+                tid = types.get(token)
+                if tid is None:
+                    tid = types[token] = len(surfaces)
+                    surfaces.append(token)
+                flat.append(tid)
+            position += len(tokens)
+        self.starts.extend(starts)
+        self.lengths.extend(lengths)
+        self.hashes.extend(chunk_hashes([c[:-1] for c in chunks], self.seed))
+        self.flat.extend(flat)
+        return ids
+
+    def unreported(self) -> list[str]:
+        """Surfaces of the types added since the last call, in type id order."""
+        new = self.surfaces[self.reported:]
+        self.reported = len(self.surfaces)
+        return new
+
+
+_tables: dict[str, ChunkTable] = {}
+_session = ""
+
+
+def _table(task: ScanTask) -> ChunkTable:
+    global _session
+    if task.session != _session:
+        _tables.clear()
+        _session = task.session
+    table = _tables.get(task.language)
+    if table is None:
+        table = _tables[task.language] = ChunkTable(task.seed)
+    return table
 
 
 def ragged_gather(starts: np.ndarray, lengths: np.ndarray) -> np.ndarray:
@@ -77,34 +177,65 @@ def ragged_gather(starts: np.ndarray, lengths: np.ndarray) -> np.ndarray:
     return np.arange(total, dtype=np.int64) + np.repeat(shift, lengths)
 
 
+def _chunk_array(data: bytes) -> tuple[pa.Array, np.ndarray]:
+    """The space-separated chunks of LF-joined lines as an arrow string array (each chunk keeps
+    the one space or line end after it, turned into a space), and the chunk count per line."""
+    raw = np.frombuffer(data, dtype=np.uint8)
+    buffer = np.empty(len(raw) + 1, dtype=np.uint8)
+    buffer[:-1] = raw
+    buffer[-1] = 10
+    separators = np.flatnonzero((buffer == 32) | (buffer == 10))
+    line_ends = np.flatnonzero(buffer[separators] == 10)
+    buffer[separators] = 32
+    offsets = np.empty(len(separators) + 1, dtype=np.int64)
+    offsets[0] = 0
+    offsets[1:] = separators + 1
+    chunks = pa.LargeStringArray.from_buffers(len(separators), pa.py_buffer(offsets), pa.py_buffer(buffer))
+    return chunks, np.diff(line_ends, prepend=-1)
+
+
 def scan_block(task: ScanTask) -> ScanResult:
     """Clean and segment one block into arrays (see the module docstring)."""
+    started = time.perf_counter()
+    table = _table(task)
+    if len(table.chunks) > MAX_CHUNKS:
+        table.forget_chunks()
     cleaned = clean_block(task.block, task.clean, task.display)
     lines = cleaned.lines
     counters = cleaned.counters
-    local: dict[str, int] = {}
+    cleaned_at = time.perf_counter()
     if not lines:
         empty = np.zeros(0, dtype=np.int64)
-        return ScanResult(task.block.file_index, [], np.zeros(0, np.uint32), empty,
-                          np.zeros(0, np.uint8), empty, "", counters)
-    pieces = pc.split_pattern(pa.array(lines, type=pa.large_string()), " ")
-    per_line_chunks = np.diff(pieces.offsets.to_numpy())
-    encoded = pc.dictionary_encode(pieces.flatten())
-    chunk_index = encoded.indices.to_numpy(zero_copy_only=False)
-    seg_ids: list[int] = []
-    seg_len = np.empty(len(encoded.dictionary), dtype=np.int64)
-    for i, chunk in enumerate(encoded.dictionary.to_pylist()):
-        tokens = _segment_chunk(chunk)
-        seg_len[i] = len(tokens)
-        for token in tokens:
-            seg_ids.append(local.setdefault(token, len(local)))
-    seg_start = np.concatenate(([0], np.cumsum(seg_len)[:-1])) if len(seg_len) else seg_len
-    seg_array = np.asarray(seg_ids, dtype=np.uint32)
-    occ_len = seg_len[chunk_index]
-    tokens = seg_array[ragged_gather(seg_start[chunk_index], occ_len)]
-    line_starts = np.concatenate(([0], np.cumsum(per_line_chunks)[:-1]))
-    lengths = np.add.reduceat(occ_len, line_starts) if len(occ_len) else np.zeros(len(lines), np.int64)
+        return ScanResult(task.block.file_index, task.language, os.getpid(), table.unreported(),
+                          np.zeros(0, np.uint32), empty, np.zeros(0, np.uint8), empty, b"", counters,
+                          {"clean": cleaned_at - started}, len(task.block.data))
+    data = "\n".join(lines).encode("utf-8")
+    chunks, chunks_per_line = _chunk_array(data)
+    encoded = pc.dictionary_encode(chunks)
+    distinct = encoded.dictionary.to_pylist()
+    known = table.chunks.get
+    chunk_ids = np.array([known(c, -1) for c in distinct], dtype=np.int64)
+    missing = np.flatnonzero(chunk_ids < 0)
+    if len(missing):
+        # In first-seen order, so that new types get worker ids in corpus order.
+        new = encoded.dictionary.take(pa.array(missing))
+        kinds = (pc.match_substring_regex(new, _PLAIN_WORD).to_numpy(zero_copy_only=False).astype(np.int8)
+                 + 2 * pc.match_substring_regex(new, _WORD_AND_MARK).to_numpy(zero_copy_only=False))
+        gc_was_enabled = gc.isenabled()
+        gc.disable()  # many small lists and no cycles: the collector would only add time
+        try:
+            chunk_ids[missing] = table.add([distinct[i] for i in missing.tolist()], kinds.tolist())
+        finally:
+            if gc_was_enabled:
+                gc.enable()
+    occurrence = chunk_ids[encoded.indices.to_numpy(zero_copy_only=False)]
+    occurrence_lengths = table.lengths.data[occurrence]
+    tokens = table.flat.data[ragged_gather(table.starts.data[occurrence], occurrence_lengths)]
+    line_starts = np.cumsum(chunks_per_line) - chunks_per_line
+    lengths = np.add.reduceat(occurrence_lengths, line_starts)
     numbers = np.asarray(cleaned.line_numbers, dtype=np.int64)
+    segmented_at = time.perf_counter()
+    splits = splits_of_hashes(line_hashes(table.hashes.data[occurrence], chunks_per_line), task.thresholds)
 
     spec = task.clean
     keep = lengths >= spec.min_tokens
@@ -115,14 +246,16 @@ def scan_block(task: ScanTask) -> ScanResult:
         if spec.max_tokens:
             counters["too_many_tokens_dropped"] += int((lengths > spec.max_tokens).sum())
         tokens = tokens[np.repeat(keep, lengths)]
-        lengths, numbers = lengths[keep], numbers[keep]
-        lines = [line for line, k in zip(lines, keep) if k]
-    counters["sentences_kept"] += len(lines)
+        lengths, numbers, splits = lengths[keep], numbers[keep], splits[keep]
+        if task.keep_text:
+            data = "\n".join(line for line, k in zip(lines, keep.tolist()) if k).encode("utf-8")
+    counters["sentences_kept"] += len(lengths)
     counters["tokens_kept"] += int(lengths.sum())
-    splits = assign_splits(lines, task.seed, task.thresholds)
-    text = "\n".join(lines) if task.keep_text else ""
-    return ScanResult(task.block.file_index, list(local), tokens, lengths.astype(np.int64),
-                      splits, numbers, text, counters)
+    done = time.perf_counter()
+    return ScanResult(task.block.file_index, task.language, os.getpid(), table.unreported(), tokens,
+                      lengths.astype(np.int64), splits, numbers, data if task.keep_text else b"", counters,
+                      {"clean": cleaned_at - started, "segment": segmented_at - cleaned_at,
+                       "splits": done - segmented_at}, len(task.block.data))
 
 
 class TypeTable:
@@ -146,6 +279,21 @@ class TypeTable:
                 surfaces.append(surface)
             lut[i] = gid
         return lut
+
+
+class WorkerTypeMaps:
+    """Per (worker, language): the lookup table from worker type ids to the language's
+    :class:`TypeTable` ids, extended with each result's new types."""
+
+    def __init__(self) -> None:
+        self._luts: dict[tuple[int, str], np.ndarray] = {}
+
+    def global_ids(self, result: ScanResult, table: TypeTable) -> np.ndarray:
+        key = (result.worker, result.language)
+        lut = self._luts.get(key, np.zeros(0, dtype=np.uint32))
+        if result.new_types:
+            lut = self._luts[key] = np.concatenate((lut, table.merge(result.new_types)))
+        return lut[result.tokens] if len(result.tokens) else np.zeros(0, np.uint32)
 
 
 def _context() -> multiprocessing.context.BaseContext:

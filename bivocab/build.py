@@ -152,11 +152,26 @@ def _remove_stale(out: Path, previous: dict[str, Any] | None, manifest: dict[str
 
 
 def _scan_tasks(recipe: Recipe, files: list[InputFile]) -> Iterator[ScanTask]:
+    """Blocks of every input, the languages' streams interleaved block by block so that each
+    worker can keep to one language (results do not depend on the interleaving: each language
+    is merged in its own input order)."""
     thresholds = split_thresholds(recipe.splits)
     session = uuid.uuid4().hex
-    for index, source in enumerate(files):
-        for block in read_blocks(source, index):
-            yield ScanTask(block, source.display, source.language, recipe.clean, recipe.seed, thresholds, session)
+
+    def language_stream(tag: str) -> Iterator[ScanTask]:
+        for index, source in enumerate(files):
+            if source.language == tag:
+                for block in read_blocks(source, index):
+                    yield ScanTask(block, source.display, tag, recipe.clean, recipe.seed, thresholds, session)
+
+    streams = [language_stream(tag) for tag in recipe.tags]
+    while streams:
+        for stream in list(streams):
+            task = next(stream, None)
+            if task is None:
+                streams.remove(stream)
+            else:
+                yield task
 
 
 class _WorkArrays:
@@ -229,7 +244,8 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
     total_bytes = sum(os.path.getsize(f.path) for f in files) if plain else None
     with meter.stage("scan", total=total_bytes, unit="B") as advance:
         type_maps = WorkerTypeMaps()
-        for result in ordered_map(scan_block, _scan_tasks(recipe, files), jobs):
+        for result in ordered_map(scan_block, _scan_tasks(recipe, files), jobs,
+                                  affinity=lambda task: tags.index(task.language)):
             started = time.perf_counter()
             li = lang_of_file[result.file_index]
             scan = scans[li]

@@ -17,9 +17,9 @@ from __future__ import annotations
 import gc
 import multiprocessing
 import os
+import queue
 import time
-from collections import Counter
-from concurrent.futures import Future, ProcessPoolExecutor
+from collections import Counter, deque
 from dataclasses import dataclass
 from typing import Callable, Iterable, Iterator, TypeVar
 
@@ -28,10 +28,17 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from .clean import clean_block
+from .errors import BivocabError
 from .recipe import CleanSpec
 from .segment import segment
 from .sources import Block
 from .splits import chunk_hashes, line_hashes, splits_of_hashes
+
+class WorkerError(BivocabError):
+    """A worker process died (killed, out of memory) instead of returning a result."""
+
+    exit_code = 1
+
 
 T = TypeVar("T")
 R = TypeVar("R")
@@ -304,17 +311,84 @@ def _context() -> multiprocessing.context.BaseContext:
     return ctx
 
 
-def ordered_map(fn: Callable[[T], R], items: Iterable[T], jobs: int) -> Iterator[R]:
-    """``map(fn, items)`` over ``jobs`` worker processes, in input order, with a bounded window
-    of pending items so that a large corpus is never queued in memory."""
+def _serve(fn: Callable[[T], R], inbox: multiprocessing.Queue, outbox: multiprocessing.Queue) -> None:
+    """Worker process: apply ``fn`` to each item of ``inbox`` in order until ``None`` arrives."""
+    while True:
+        item = inbox.get()
+        if item is None:
+            return
+        try:
+            outbox.put((True, fn(item)))
+        except BaseException as exc:  # handed to the parent, which raises it
+            outbox.put((False, exc))
+
+
+# Items queued per worker: enough to keep it busy while the parent merges, few enough that a
+# large corpus is never queued in memory.
+WINDOW = 2
+
+
+def ordered_map(fn: Callable[[T], R], items: Iterable[T], jobs: int,
+                affinity: Callable[[T], int] | None = None) -> Iterator[R]:
+    """``map(fn, items)`` over ``jobs`` worker processes, yielding results in input order, with
+    at most WINDOW items queued per worker.
+
+    ``affinity(item)`` names a preferred worker (modulo ``jobs``): items with the same affinity
+    go to the same worker while it keeps up, so its per-process caches stay warm; an item
+    whose worker is busy goes to the least busy one instead.  Which worker ran an item never
+    changes a result (see the module docstring).
+    """
     if jobs <= 1:
         yield from map(fn, items)
         return
-    with ProcessPoolExecutor(max_workers=jobs, mp_context=_context()) as pool:
-        pending: list[Future] = []
+    ctx = _context()
+    inboxes = [ctx.Queue() for _ in range(jobs)]
+    outboxes = [ctx.Queue() for _ in range(jobs)]
+    workers = [ctx.Process(target=_serve, args=(fn, inboxes[w], outboxes[w]), daemon=True) for w in range(jobs)]
+    for worker in workers:
+        worker.start()
+    load = [0] * jobs
+    order: deque[int] = deque()
+
+    def oldest() -> R:
+        w = order.popleft()
+        while True:
+            try:
+                ok, value = outboxes[w].get(timeout=0.5)
+                break
+            except queue.Empty:
+                if not workers[w].is_alive():
+                    raise WorkerError(f"worker process {workers[w].pid} stopped unexpectedly "
+                                      f"(exit code {workers[w].exitcode}); the build was not completed") from None
+        load[w] -= 1
+        if not ok:
+            raise value
+        return value
+
+    finished = False
+    try:
         for item in items:
-            pending.append(pool.submit(fn, item))
-            if len(pending) >= 2 * jobs:
-                yield pending.pop(0).result()
-        for future in pending:
-            yield future.result()
+            home = affinity(item) % jobs if affinity is not None else min(range(jobs), key=load.__getitem__)
+            while True:
+                free = [w for w in range(jobs) if load[w] < WINDOW]
+                if free:
+                    break
+                yield oldest()
+            w = home if home in free else min(free, key=load.__getitem__)
+            inboxes[w].put(item)
+            load[w] += 1
+            order.append(w)
+        while order:
+            yield oldest()
+        finished = True
+    finally:
+        for inbox, worker in zip(inboxes, workers):
+            if finished:
+                inbox.put(None)
+            else:
+                inbox.cancel_join_thread()
+                worker.terminate()
+        for worker in workers:
+            worker.join()
+        for box in outboxes:
+            box.cancel_join_thread()

@@ -1,0 +1,242 @@
+"""Pass 1 at scale: the parallel scan gives the same build whatever --jobs, its fast paths agree
+with the segmentation regex (and with the tokenizers library), splits follow their single
+definition, and the build reports its stages."""
+
+from __future__ import annotations
+
+import functools
+import hashlib
+import importlib
+import re
+import unicodedata
+from pathlib import Path
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+import bivocab.scan as scan_module
+from bivocab import build
+from bivocab.cli import main
+from bivocab.clean import _CONTROL_RE, _EDGE_SPACE_RE, _MULTI_SPACE_RE, _SPACE_RE, normalise_lines
+from bivocab.progress import BuildMeter
+from bivocab.recipe import CleanSpec, SplitSpec
+from bivocab.scan import ScanTask, WorkerError, ordered_map, scan_block
+from bivocab.segment import segment
+from bivocab.sources import Block, read_blocks
+from bivocab.splits import assign_splits, chunk_hashes, line_hashes, split_thresholds
+
+build_module = importlib.import_module("bivocab.build")  # the package exports a function of that name
+
+EN = ["The ferry to Kellhaven leaves at 7.15, if the fog lifts.",
+      "Gulls followed the trawler \"Marta\" (registered 1,204) into the harbour!",
+      "Don't tie up at pier 3; the crane's broken.",
+      "Tide tables: 4.20 m at noon — 0.80 m at dusk.",
+      "The harbour master's café opens at six."]
+DE = ["Die Fähre nach Kellhaven fährt um 7.15 Uhr, wenn sich der Nebel hebt.",
+      "Möwen folgten dem Kutter „Marta“ (Nr. 1.204) in den Hafen!",
+      "Am Steg 3 nicht festmachen; der Kran ist kaputt.",
+      "Gezeiten: 4,20 m am Mittag – 0,80 m am Abend.",
+      "Das Café des Hafenmeisters öffnet um sechs. Geht's?"]
+
+
+def _corpus(root: Path, lines_per_language: int = 1500) -> Path:
+    """A small two-language corpus (varied, with repeats) and its three-condition recipe."""
+    rng = np.random.default_rng(5)
+    for tag, base in (("en", EN), ("de", DE)):
+        words = " ".join(base).split()
+        lines = []
+        for i in range(lines_per_language):
+            picked = rng.choice(len(words), size=int(rng.integers(1, 14)))
+            lines.append(" ".join(words[j] for j in picked) + (f" {i}" if i % 7 == 0 else ""))
+        (root / tag).mkdir()
+        (root / tag / "a.txt").write_text("\n".join(lines[: lines_per_language // 2]) + "\n", encoding="utf-8")
+        (root / tag / "b.txt").write_text("\n".join(lines[lines_per_language // 2:]) + "\n", encoding="utf-8")
+    recipe = root / "recipe.toml"
+    recipe.write_text("""
+[build]
+name = "kellhaven-scale"
+seed = 11
+[languages.en]
+inputs = ["en/*.txt"]
+[languages.de]
+inputs = ["de/*.txt"]
+[shards]
+max_tokens = 2000
+[[condition]]
+name = "shared"
+policy = "shared"
+[[condition]]
+name = "word-tagged"
+policy = "word-tagged"
+[[condition]]
+name = "fully-tagged"
+policy = "fully-tagged"
+""", encoding="utf-8")
+    return recipe
+
+
+def _tree(out: Path) -> dict[str, bytes]:
+    return {str(p.relative_to(out)): p.read_bytes() for p in sorted(out.rglob("*")) if p.is_file()}
+
+
+@pytest.fixture
+def small_blocks(monkeypatch: pytest.MonkeyPatch) -> None:
+    """Blocks of 2 KiB, so that a small corpus spans many blocks and both workers get work."""
+    monkeypatch.setattr(build_module, "read_blocks", functools.partial(read_blocks, block_bytes=2048))
+
+
+def test_build_is_byte_identical_whatever_the_number_of_jobs(tmp_path: Path, small_blocks: None) -> None:
+    recipe = _corpus(tmp_path)
+    trees = []
+    for jobs in (1, 2, 3):
+        out = tmp_path / f"out{jobs}"
+        build(recipe, out, jobs=jobs)
+        trees.append(_tree(out))
+    assert trees[0] == trees[1] == trees[2]
+    assert any(name.endswith("tokens.npy") for name in trees[0])
+
+
+def test_build_is_unchanged_when_workers_forget_their_chunks(tmp_path: Path, small_blocks: None,
+                                                            monkeypatch: pytest.MonkeyPatch) -> None:
+    recipe = _corpus(tmp_path)
+    build(recipe, tmp_path / "remember", jobs=1)
+    monkeypatch.setattr(scan_module, "MAX_CHUNKS", 5)
+    build(recipe, tmp_path / "forget", jobs=1)
+    assert _tree(tmp_path / "remember") == _tree(tmp_path / "forget")
+
+
+def _scan_lines(lines: list[str], seed: int = 3) -> tuple[list[list[str]], np.ndarray]:
+    """Tokens and splits of each line, as the scan computes them (surfaces via new_types)."""
+    data = "\n".join(lines).encode("utf-8")
+    block = Block(0, 1, data, len(lines))
+    task = ScanTask(block, "t.txt", "en", CleanSpec(normal_form="none"), seed,
+                    split_thresholds(SplitSpec()), session=hashlib.sha1(data).hexdigest())
+    result = scan_block(task)
+    surfaces = result.new_types
+    tokens = [surfaces[i] for i in result.tokens.tolist()]
+    ends = np.cumsum(result.lengths)
+    per_line = [tokens[e - n:e] for e, n in zip(ends.tolist(), result.lengths.tolist())]
+    return per_line, result.splits
+
+
+def test_scan_tokens_equal_the_segmentation_of_each_line() -> None:
+    lines = EN + DE + ["a,b c. d; ... Straße, naïve; Ærø! x", "ŉ ĸ ſ; À, ÿ."]
+    tokens, _ = _scan_lines(lines)
+    assert tokens == [segment(line) for line in lines]
+
+
+# Text of single-spaced chunks drawn from letters (ASCII, Latin-1, Latin Extended-A, Greek),
+# combining marks, digits, apostrophes and punctuation: every fast path and the regex path.
+_ALPHABET = st.sampled_from(list("aZéßÆœŉſΩ\u0301\u0308'’0379,.;:!?()\"«»-–€#"))
+_CHUNK = st.text(_ALPHABET, min_size=1, max_size=8)
+_LINE = st.lists(_CHUNK, min_size=1, max_size=6).map(" ".join)
+
+
+@settings(max_examples=150, deadline=None)
+@given(st.lists(_LINE, min_size=1, max_size=8))
+def test_scan_agrees_with_segment_and_assign_splits_on_any_text(lines: list[str]) -> None:
+    tokens, splits = _scan_lines(lines, seed=9)
+    assert tokens == [segment(line) for line in lines]
+    assert splits.tolist() == assign_splits(lines, 9, split_thresholds(SplitSpec())).tolist()
+
+
+def test_scan_tokens_match_the_tokenizers_library_with_the_exported_tokenizer(tmp_path: Path) -> None:
+    # Reference: the tokenizers library (PyPI `tokenizers`) running our exported pre-tokenizer
+    # (Oniguruma regex engine), an implementation independent of the scan's fast paths.
+    from tokenizers import Tokenizer
+
+    recipe = _corpus(tmp_path, lines_per_language=60)
+    out = tmp_path / "out"
+    build(recipe, out)
+    tokenizer = Tokenizer.from_file(str(out / "shared" / "tokenizer.de.json"))
+    lines = (tmp_path / "de" / "a.txt").read_text(encoding="utf-8").splitlines()
+    ours, _ = _scan_lines(lines)
+    theirs = [[piece for piece, _ in tokenizer.pre_tokenizer.pre_tokenize_str(line)] for line in lines]
+    assert ours == theirs
+
+
+def test_split_of_a_sentence_depends_only_on_its_text_and_the_seed() -> None:
+    th = split_thresholds(SplitSpec(0.5, 0.25, 0.25))
+    texts = [f"the boat {i} came in" for i in range(200)]
+    alone = [int(assign_splits([t], 4, th)[0]) for t in texts[:20]]
+    assert assign_splits(texts, 4, th)[:20].tolist() == alone
+    assert assign_splits(texts[::-1], 4, th)[::-1][:20].tolist() == alone
+    assert assign_splits(texts, 5, th).tolist() != assign_splits(texts, 4, th).tolist()
+
+
+def test_split_fractions_follow_the_recipe() -> None:
+    texts = [f"line {i} of the harbour log" for i in range(30_000)]
+    splits = assign_splits(texts, 7, split_thresholds(SplitSpec(0.8, 0.1, 0.1)))
+    shares = np.bincount(splits, minlength=3) / len(texts)
+    # Binomial standard error at n = 30,000 is about 0.0023 for p = 0.8 (sqrt(p(1-p)/n)).
+    assert np.allclose(shares, [0.8, 0.1, 0.1], atol=0.012)
+
+
+def test_line_hash_depends_on_chunk_order() -> None:
+    hashes = np.array(chunk_hashes(["ebb", "tide"], 1), dtype=np.uint64)
+    forward = line_hashes(hashes, np.array([2]))
+    backward = line_hashes(hashes[::-1], np.array([2]))
+    assert forward[0] != backward[0]
+
+
+def test_chunk_hash_is_keyed_blake2b_of_the_utf8_bytes() -> None:
+    # Reference: BLAKE2b (RFC 7693) as implemented by Python's hashlib, keyed with the seed.
+    expected = int.from_bytes(hashlib.blake2b("Fähre".encode(), digest_size=8,
+                                              key=(12).to_bytes(16, "little", signed=True)).digest(), "little")
+    assert chunk_hashes(["Fähre"], 12) == [expected]
+
+
+def test_ordered_map_returns_results_in_input_order_with_affinity() -> None:
+    items = list(range(-60, 0))
+    assert list(ordered_map(abs, items, 2, affinity=lambda x: x % 3)) == [abs(x) for x in items]
+
+
+def test_ordered_map_raises_a_worker_exception_in_the_parent() -> None:
+    with pytest.raises(ValueError):
+        list(ordered_map(int, ["1", "2", "harbour", "4"], 2))
+
+
+def test_worker_error_is_a_one_line_build_error() -> None:
+    assert issubclass(WorkerError, build_module.BivocabError)
+
+
+_SPACE_OR_CONTROL = st.text(st.sampled_from(list("ab \t\x00\x0b\x1f\x85\xa0\u2003\u3000\x7f") + ["\n"]), max_size=30)
+
+
+@settings(max_examples=300, deadline=None)
+@given(_SPACE_OR_CONTROL)
+def test_normalise_lines_fast_path_equals_the_full_substitutions(text: str) -> None:
+    full = _SPACE_RE.sub(" ", _CONTROL_RE.sub(" ", text))
+    full = _EDGE_SPACE_RE.sub("", _MULTI_SPACE_RE.sub(" ", unicodedata.normalize("NFC", full)))
+    assert normalise_lines(text, CleanSpec()) == full
+
+
+def test_profile_flag_prints_the_time_of_each_stage(tmp_path: Path) -> None:
+    recipe = _corpus(tmp_path, lines_per_language=40)
+    result = CliRunner().invoke(main, ["build", str(recipe), "--out", str(tmp_path / "out"), "--quiet", "--profile"])
+    assert result.exit_code == 0, result.output
+    stages = [line.split()[0] for line in result.stderr.splitlines()[1:]]
+    assert stages[:2] == ["hash", "scan"] and "vocabulary" in stages and "shards" in stages
+    assert re.search(r"^scan\s+\d+\.\d+\s+\d+\.\d%\s+\d+\.\d+ M words/s", result.stderr, re.M)
+
+
+def test_build_prints_no_progress_without_a_terminal(tmp_path: Path) -> None:
+    recipe = _corpus(tmp_path, lines_per_language=40)
+    result = CliRunner().invoke(main, ["build", str(recipe), "--out", str(tmp_path / "out")])
+    assert result.exit_code == 0, result.output
+    assert result.stderr == ""
+
+
+def test_meter_records_stages_in_order_with_their_amounts() -> None:
+    meter = BuildMeter()
+    advance = meter.begin("scan", unit="B")
+    advance(10, words=3)
+    advance(5, words=2)
+    with meter.stage("shards", unit="sentences") as step:
+        step(4)
+    meter.end()
+    assert [(t.name, t.amount, t.words) for t in meter.timings] == [("scan", 15, 5), ("shards", 4, 0)]
+    assert all(t.seconds >= 0 for t in meter.timings)

@@ -26,6 +26,7 @@ from .manifest import (LOCK, MANIFEST, WORK, atomic_open, atomic_write_text, bui
                        canonical_json, environment, read_manifest, sha256_file)
 from .mix import SplitOrder, mix_split
 from .recipe import SPLITS, Recipe, load_recipe
+from .gather import ShardBuckets
 from .progress import BuildMeter
 from .scan import ScanResult, ScanTask, TypeTable, WorkerTypeMaps, ordered_map, ragged_gather, scan_block
 from .segment import token_class
@@ -282,7 +283,11 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
         order = mix_split(si, rows, recipe.mix, recipe.seed)
         for cond in recipe.conditions:
             shard_paths[cond.name][split] = []
-        for shard_index, members in enumerate(_shard_members(order, arrays, recipe.shards.max_tokens)):
+        shard_list = list(_shard_members(order, arrays, recipe.shards.max_tokens))
+        buckets = ShardBuckets(work, split, order.langs, order.rows,
+                               np.repeat(np.arange(len(shard_list)), [len(m) for m in shard_list]),
+                               [w.paths["tokens"] for w in writers], [a["lengths"] for a in arrays], starts)
+        for shard_index, members in enumerate(shard_list):
             stem = shard_stem(split, shard_index)
             langs = order.langs[members]
             rows_here = order.rows[members]
@@ -294,7 +299,7 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
                 prov["input"][mask] = np.asarray(arrays[li]["inputs"])[r]
                 prov["line"][mask] = np.asarray(arrays[li]["lines"])[r]
                 lengths = np.asarray(arrays[li]["lengths"])[r]
-                types = np.asarray(arrays[li]["tokens"])[ragged_gather(starts[li][r], lengths)]
+                types = buckets.tokens(li, shard_index, r, lengths)
                 gathered.append((mask, lengths, types))
             path = f"provenance/{stem}.npy"
             write_npy(out / path, prov)
@@ -305,6 +310,7 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
                 written += paths
                 shard_paths[cond.name][split].append(f"{cond.name}/{stem}")
             advance(len(members), words=sum(len(t) for _, _, t in gathered))
+        buckets.remove()
 
     advance = meter.begin("vocab files", total=len(recipe.conditions), unit="conditions")
     for cond, vocab in zip(recipe.conditions, vocabs):

@@ -1,0 +1,85 @@
+"""Gathering each shard's type ids from the pass-1 token files with memory flat in corpus size.
+
+The mixed order of a split picks sentences from all over a language's token file, so reading
+them straight from a memory map would touch (and keep resident) the whole file for every shard.
+Instead, one sequential pass per split and language copies every sentence's tokens into a
+bucket file where each shard's sentences lie together (in row order); writing a shard then
+reads one region per language.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from .scan import ragged_gather
+
+# Tokens read from the token file at a time during the copy into buckets.
+CHUNK_TOKENS = 1 << 22
+
+
+class ShardBuckets:
+    """Per-language bucket files of one split: ``tokens(li, shard, rows, lengths)`` returns the
+    type ids of the given rows (a shard's sentences of language ``li``, in any order)."""
+
+    def __init__(self, work: Path, split: str, langs: np.ndarray, rows: np.ndarray, shard_of: np.ndarray,
+                 token_paths: list[Path], lengths: list[np.ndarray], starts: list[np.ndarray]) -> None:
+        n_shards = int(shard_of.max()) + 1 if len(shard_of) else 0
+        self._rows: list[np.ndarray] = []          # per language: rows sorted by (shard, row)
+        self._bounds: list[np.ndarray] = []        # per language: first index of each shard in _rows
+        self._local: list[np.ndarray] = []         # per language: bucket offset of each sorted row, and the end
+        self._paths: list[Path] = []
+        for li, path in enumerate(token_paths):
+            mine = langs == li
+            lang_rows, lang_shards = rows[mine], shard_of[mine]
+            order = np.lexsort((lang_rows, lang_shards))
+            sorted_rows, sorted_shards = lang_rows[order], lang_shards[order]
+            sizes = np.asarray(lengths[li])[sorted_rows].astype(np.int64)
+            local = np.zeros(len(sizes) + 1, dtype=np.int64)
+            np.cumsum(sizes, out=local[1:])
+            bucket = work / f"bucket.{split}.{li}.bin"
+            _copy_into_bucket(path, bucket, sorted_rows, local[:-1], sizes, np.asarray(starts[li]))
+            self._rows.append(sorted_rows)
+            self._bounds.append(np.searchsorted(sorted_shards, np.arange(n_shards + 1)))
+            self._local.append(local)
+            self._paths.append(bucket)
+
+    def tokens(self, li: int, shard: int, rows: np.ndarray, lengths: np.ndarray) -> np.ndarray:
+        lo, hi = int(self._bounds[li][shard]), int(self._bounds[li][shard + 1])
+        if lo == hi:
+            return np.zeros(0, dtype=np.uint32)
+        first, last = int(self._local[li][lo]), int(self._local[li][hi])
+        region = np.fromfile(self._paths[li], dtype=np.uint32, count=last - first, offset=4 * first)
+        at = lo + np.searchsorted(self._rows[li][lo:hi], rows)
+        return region[ragged_gather(self._local[li][at] - first, lengths)]
+
+    def remove(self) -> None:
+        for path in self._paths:
+            path.unlink(missing_ok=True)
+
+
+def _copy_into_bucket(token_path: Path, bucket: Path, rows: np.ndarray, local: np.ndarray, sizes: np.ndarray,
+                      starts: np.ndarray) -> None:
+    """Write each entry's tokens (``rows[i]``, ``sizes[i]`` tokens) at bucket offset ``local[i]``,
+    reading the token file once, in order, a chunk at a time."""
+    by_row = np.argsort(rows, kind="stable")        # entries in file order
+    file_starts = starts[rows[by_row]]
+    with open(bucket, "wb") as out:
+        out.truncate(4 * int(sizes.sum()))
+        begin = 0
+        while begin < len(by_row):
+            end = max(begin + 1, int(np.searchsorted(file_starts, file_starts[begin] + CHUNK_TOKENS)))
+            lo = int(file_starts[begin])
+            hi = int(file_starts[end - 1] + sizes[by_row[end - 1]])
+            chunk = np.fromfile(token_path, dtype=np.uint32, count=hi - lo, offset=4 * lo)
+            # The chunk's entries in bucket order: each shard's part is one contiguous run.
+            entries = np.sort(by_row[begin:end])
+            part = chunk[ragged_gather(starts[rows[entries]] - lo, sizes[entries])]
+            breaks = np.flatnonzero(np.diff(entries) != 1) + 1
+            bounds = np.concatenate(([0], breaks, [len(entries)]))
+            within = np.concatenate(([0], np.cumsum(sizes[entries])))
+            for a, b in zip(bounds[:-1].tolist(), bounds[1:].tolist()):
+                out.seek(4 * int(local[entries[a]]))
+                out.write(part[within[a]:within[b]].tobytes())
+            begin = end

@@ -240,3 +240,21 @@ def test_meter_records_stages_in_order_with_their_amounts() -> None:
     meter.end()
     assert [(t.name, t.amount, t.words) for t in meter.timings] == [("scan", 15, 5), ("shards", 4, 0)]
     assert all(t.seconds >= 0 for t in meter.timings)
+
+
+def test_build_is_unchanged_when_shard_buckets_are_copied_in_tiny_chunks(tmp_path: Path,
+                                                                        monkeypatch: pytest.MonkeyPatch) -> None:
+    recipe = _corpus(tmp_path)
+    build(recipe, tmp_path / "big", jobs=1)
+    monkeypatch.setattr(importlib.import_module("bivocab.gather"), "CHUNK_TOKENS", 7)
+    build(recipe, tmp_path / "tiny", jobs=1)
+    assert _tree(tmp_path / "big") == _tree(tmp_path / "tiny")
+
+
+def test_build_with_empty_valid_and_test_splits_writes_no_shards_for_them(tmp_path: Path) -> None:
+    recipe = _corpus(tmp_path, lines_per_language=50)
+    recipe.write_text(recipe.read_text(encoding="utf-8") + "\n[splits]\ntrain = 1.0\nvalid = 0.0\ntest = 0.0\n",
+                      encoding="utf-8")
+    result = build(recipe, tmp_path / "out")
+    shards = result.manifest["conditions"]["shared"]["shards"]
+    assert shards["valid"] == [] and shards["test"] == [] and shards["train"]

@@ -11,6 +11,7 @@ Throughput is always the corpus's ``wc -w`` word count divided by the time.
     python benchmarks/run.py --size 50m --repeat 1 --methods wc,pyarrow,bivocab-3,bivocab-3-jobs1
 
 Prints one table and writes benchmarks/results/<size>-<date>.json (and <size>-latest.json).
+``--markdown FILE...`` prints earlier JSON results as the Markdown kept in benchmarks/RESULTS.md.
 """
 
 from __future__ import annotations
@@ -185,13 +186,41 @@ def checks(rows: dict[str, dict], size: str, results_dir: Path) -> dict[str, obj
     return out
 
 
+def markdown(paths: list[Path]) -> str:
+    """The figures of saved runs as Markdown tables (one per run)."""
+    out = []
+    for path in paths:
+        report = json.loads(path.read_text())
+        m, c = report["machine"], report["corpus"]
+        rows = report["methods"]
+        rate = {r["method"]: r["words_per_second"] for r in rows}
+        baselines = [b for b in BASELINES if b in rate]
+        out += [f"## {c['size']} corpus ({c['words']:,} words), {report['date']}, commit {report['commit']}", "",
+                f"Machine: {m['cpu']}, {m['cores']} cores, {m['memory_gib']} GiB, Python {m['python']}; "
+                f"bivocab --jobs {report['jobs']}; median of {report['repeat']} run(s).", "",
+                "| method | words/s | " + " | ".join(f"x {b}" for b in baselines) + " | peak RSS |",
+                "|---|---:|" + "---:|" * len(baselines) + "---:|"]
+        for r in rows:
+            ratios = " | ".join(f"{r['words_per_second'] / rate[b]:.2f}" for b in baselines)
+            out.append(f"| {r['method']} | {r['words_per_second'] / 1e6:.2f} M | {ratios} | "
+                       f"{r['peak_rss_bytes'] / 2**20:.0f} MiB |")
+        out += ["", "| check | value |", "|---|---|"]
+        out += [f"| {k} | {v} |" for k, v in report["checks"].items()]
+        out.append("")
+    return "\n".join(out)
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--size", default="5m", help="corpus under benchmarks/data/ (made if missing): 5m or 50m")
     parser.add_argument("--repeat", type=int, default=3, help="runs per method; the median is reported")
     parser.add_argument("--jobs", type=int, default=2, help="--jobs of the bivocab runs")
     parser.add_argument("--methods", default=",".join(METHODS), help=f"comma-separated subset of {','.join(METHODS)}")
+    parser.add_argument("--markdown", nargs="+", type=Path, metavar="JSON", help="print saved results as Markdown")
     args = parser.parse_args()
+    if args.markdown:
+        print(markdown(args.markdown))
+        return
     methods = [m for m in args.methods.split(",") if m]
     unknown = set(methods) - set(METHODS)
     if unknown:

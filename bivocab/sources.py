@@ -84,13 +84,14 @@ def _read(handle: BinaryIO, size: int, display: str) -> bytes:
         raise InputError(f"{display}: cannot read input ({name}: {exc})") from None
 
 
-def read_blocks(source: InputFile, file_index: int, block_bytes: int = BLOCK_BYTES) -> Iterator[Block]:
+def read_blocks(source: InputFile, file_index: int, block_bytes: int | None = None) -> Iterator[Block]:
     """Yield the file as blocks of whole lines (LF-separated, no trailing LF).
 
     A byte-order mark at the start of the file is removed; CRLF and lone CR become LF.
     The file's size and modification time are compared before and after reading, so a file
     that changes while it is read is reported instead of silently mixing two versions.
     """
+    block_bytes = block_bytes or BLOCK_BYTES
     try:
         before = os.stat(source.path)
     except OSError as exc:

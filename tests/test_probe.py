@@ -17,6 +17,7 @@ import bivocab.probe as probe_module
 from bivocab.build import build
 from bivocab.cli import main
 from bivocab.probe import frequency_per_million, probe, zipf_value
+from conftest import write_recipe
 
 EN_HARBOUR = [
     "Gulls circle above the old lighthouse of Kellhaven every morning.",
@@ -43,18 +44,15 @@ DE_MARKT = [
     "Ein Kind kauft Brot und Räucheraal am Kran.",
 ]
 
-CONDITIONS = """
+# Beside conftest's three conditions: per-language unknown and end-of-sentence tokens, and none.
+EXTRA_CONDITIONS = """
 [[condition]]
-name = "shared"
-policy = "shared"
-
-[[condition]]
-name = "word-tagged"
+name = "tagged-unknown"
 policy = "word-tagged"
 unknown = "per-language"
 
 [[condition]]
-name = "fully-tagged"
+name = "tagged-eos"
 policy = "fully-tagged"
 eos = "per-language"
 
@@ -65,34 +63,18 @@ eos = "none"
 """
 
 
-def make_build(root: Path, files: dict[str, list[str]], splits: tuple[float, float, float] = (1.0, 0.0, 0.0),
-               conditions: str = CONDITIONS) -> Path:
-    """Write ``files`` (relative path -> lines) under root/corpus, a recipe, and build it."""
+def make_build(root: Path, files: dict[str, list[str]], splits: tuple[float, float, float] = (1.0, 0.0, 0.0)) -> Path:
+    """Write ``files`` (path relative to root -> lines) and conftest's recipe with these splits
+    and the extra conditions, and build it into root/build."""
     for rel, lines in files.items():
-        path = root / "corpus" / rel
+        path = root / rel
         path.parent.mkdir(parents=True, exist_ok=True)
         path.write_text("\n".join(lines) + "\n", encoding="utf-8")
     train, valid, test = splits
-    recipe = root / "recipe.toml"
-    recipe.write_text(f"""
-[build]
-name = "probe-test"
-seed = 3
-
-[languages.en]
-inputs = ["corpus/en/*.txt"]
-
-[languages.de]
-inputs = ["corpus/de/*.txt"]
-
-[splits]
-train = {train}
-valid = {valid}
-test = {test}
-{conditions}""", encoding="utf-8")
-    out = root / "build"
-    build(recipe, out)
-    return out
+    recipe = write_recipe(root, extra=f"[splits]\ntrain = {train}\nvalid = {valid}\ntest = {test}\n"
+                                      + EXTRA_CONDITIONS)
+    build(recipe, root / "build")
+    return root / "build"
 
 
 HARBOUR_FILES = {"en/harbour.txt": EN_HARBOUR, "en/market.txt": EN_MARKET,
@@ -148,6 +130,7 @@ def test_a_word_seen_only_in_the_other_language_is_oov_only_where_words_are_tagg
     by_condition = {c: {e.item.id: e for e in enc} for c, enc in result.encoded.items()}
     assert by_condition["shared"]["d-english-word"].critical_oov is False
     assert by_condition["word-tagged"]["d-english-word"].critical_oov is True
+    assert by_condition["tagged-unknown"]["d-english-word"].vocab_tokens[1] == "<unk:de>"
     assert by_condition["fully-tagged"]["d-english-word"].critical_oov is True
     assert by_condition["shared"]["e-oov"].oov_tokens == ("walrus", "sleeps", "on", "7", "!")
 
@@ -164,7 +147,7 @@ def test_critical_positions_index_the_critical_word_in_the_ids(harbour_build: Pa
         ["compound", "en", "The Kell-Seeblick ferry is late.", "Kell-Seeblick", ""],
     ], header=["id", "lang", "sentence", "critical", "occurrence"])
     probe(harbour_build, items)
-    records = {r["id"]: r for r in read_jsonl(harbour_build / "probe" / "fully-tagged.jsonl")}
+    records = {r["id"]: r for r in read_jsonl(harbour_build / "probe" / "tagged-eos.jsonl")}
     assert records["twice"]["critical_positions"] == [4]
     assert [records["twice"]["tokens"][p] for p in records["twice"]["critical_positions"]] == ["Kind"]
     assert records["compound"]["critical_positions"] == [1, 2, 3]
@@ -286,11 +269,11 @@ def hits_of(result, item: str) -> list[tuple[str, str, int]]:
 
 
 def test_an_item_equal_to_a_training_sentence_is_found_with_its_file_and_line(contamination_result) -> None:
-    assert hits_of(contamination_result, "verbatim") == [("sentence", "corpus/de/hafen.txt", 3)]
+    assert hits_of(contamination_result, "verbatim") == [("sentence", "de/hafen.txt", 3)]
 
 
 def test_an_item_sharing_an_8_gram_is_found_with_its_file_and_line(contamination_result) -> None:
-    assert hits_of(contamination_result, "eight") == [("ngram", "corpus/en/harbour.txt", 2)]
+    assert hits_of(contamination_result, "eight") == [("ngram", "en/harbour.txt", 2)]
     hit = next(c for c in contamination_result.contamination if c.item == "eight").hits[0]
     assert hit.text == "ferry captain counts seven crates of salted herring"
 
@@ -302,15 +285,15 @@ def test_an_item_sharing_only_a_7_gram_is_not_flagged_at_8(contamination_result)
 
 def test_the_7_gram_is_flagged_when_n_is_7(harbour_build: Path, tmp_path: Path) -> None:
     items = write_items(tmp_path / "items.tsv", [CONTAMINATION["seven"]])
-    assert hits_of(probe(harbour_build, items, ngram=7), "seven") == [("ngram", "corpus/en/harbour.txt", 2)]
+    assert hits_of(probe(harbour_build, items, ngram=7), "seven") == [("ngram", "en/harbour.txt", 2)]
 
 
 def test_case_and_punctuation_do_not_hide_an_n_gram_overlap(contamination_result) -> None:
-    assert hits_of(contamination_result, "folded") == [("ngram", "corpus/en/market.txt", 1)]
+    assert hits_of(contamination_result, "folded") == [("ngram", "en/market.txt", 1)]
 
 
 def test_an_n_gram_ending_both_sentences_is_found(contamination_result) -> None:
-    assert hits_of(contamination_result, "tail") == [("ngram", "corpus/de/hafen.txt", 1)]
+    assert hits_of(contamination_result, "tail") == [("ngram", "de/hafen.txt", 1)]
 
 
 def test_the_training_text_is_read_once_whatever_the_number_of_items(harbour_build: Path, tmp_path: Path,
@@ -335,7 +318,7 @@ def test_sentences_outside_the_training_split_are_not_contamination(tmp_path: Pa
     out = make_build(tmp_path, {"en/a.txt": lines, "de/a.txt": DE_HAFEN}, splits=(0.5, 0.5, 0.0))
     # Which sentences the build put in each split: its provenance records (input file, line).
     inputs = json.loads((out / "build.json").read_text(encoding="utf-8"))["inputs"]
-    en_index = next(i for i, f in enumerate(inputs) if f["path"] == "corpus/en/a.txt")
+    en_index = next(i for i, f in enumerate(inputs) if f["path"] == "en/a.txt")
 
     def lines_of(split: str) -> list[int]:
         prov = np.concatenate([np.load(p) for p in sorted((out / "provenance" / split).glob("*.npy"))])
@@ -345,7 +328,7 @@ def test_sentences_outside_the_training_split_are_not_contamination(tmp_path: Pa
     items = write_items(tmp_path / "items.tsv", [["t", "en", lines[train_line - 1], "Boat"],
                                                  ["v", "en", lines[valid_line - 1], "Boat"]])
     result = probe(out, items, ngram=20)
-    assert hits_of(result, "t") == [("sentence", "corpus/en/a.txt", train_line)]
+    assert hits_of(result, "t") == [("sentence", "en/a.txt", train_line)]
     assert hits_of(result, "v") == []
 
 
@@ -421,7 +404,7 @@ def test_a_bad_items_file_writes_no_output(tmp_path: Path) -> None:
 
 def test_an_input_changed_since_the_build_is_refused(tmp_path: Path) -> None:
     out = make_build(tmp_path, HARBOUR_FILES)
-    with open(tmp_path / "corpus" / "en" / "market.txt", "a", encoding="utf-8") as handle:
+    with open(tmp_path / "en" / "market.txt", "a", encoding="utf-8") as handle:
         handle.write("A new line after the build.\n")
     items = write_items(tmp_path / "items.tsv", [["c", "en", "The fish market opens.", "market"]])
     result = run_cli("probe", out, items)

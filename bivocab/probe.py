@@ -210,6 +210,8 @@ class _BuildFiles:
             data = path.read_bytes()
         except FileNotFoundError:
             raise OutputError(f"{path}: missing from the build; rebuild it") from None
+        except OSError as exc:
+            raise OutputError(f"{path}: cannot read: {exc.strerror or exc}") from None
         if hashlib.sha256(data).hexdigest() != expected:
             raise OutputError(f"{path}: changed since the build (sha256 differs from {MANIFEST}); rebuild it")
         return data.decode("utf-8")
@@ -526,19 +528,25 @@ def probe(out: str | Path, items_path: str | Path, ngram: int = DEFAULT_NGRAM) -
     manifest = read_manifest(out)
     if manifest is None or (out / INCOMPLETE).exists():
         raise OutputError(f"{out}: not a finished bivocab build (no {MANIFEST}); build it first")
-    with build_lock(out):
-        recipe = recipe_from_manifest(manifest, out)
-        tags = recipe.tags
-        items = read_items(items_path, tags, recipe.clean)
-        files = _BuildFiles(out, manifest)
-        encoded = {cond.name: encode_items(items, load_lexicon(files, cond, tags, manifest["conditions"][cond.name]), tags)
-                   for cond in recipe.conditions}
-        critical = critical_frequencies(items, tags, files, manifest)
-        _check_inputs_unchanged(recipe, manifest)
-        contamination = scan_contamination(recipe, items, ngram)
-        result = ProbeResult(out, str(items_path), sha256_file(Path(items_path)), tags, ngram, items,
-                             encoded, critical, contamination, ())
-        return _write_outputs(result)
+    try:
+        with build_lock(out):
+            return _write_outputs(_analyse(out, manifest, items_path, ngram))
+    except OSError as exc:
+        raise OutputError(f"{out / PROBE_DIR}: cannot write the probe outputs: {exc.strerror or exc}") from None
+
+
+def _analyse(out: Path, manifest: dict[str, Any], items_path: str | Path, ngram: int) -> ProbeResult:
+    recipe = recipe_from_manifest(manifest, out)
+    tags = recipe.tags
+    items = read_items(items_path, tags, recipe.clean)
+    files = _BuildFiles(out, manifest)
+    encoded = {cond.name: encode_items(items, load_lexicon(files, cond, tags, manifest["conditions"][cond.name]), tags)
+               for cond in recipe.conditions}
+    critical = critical_frequencies(items, tags, files, manifest)
+    _check_inputs_unchanged(recipe, manifest)
+    contamination = scan_contamination(recipe, items, ngram)
+    return ProbeResult(out, str(items_path), sha256_file(Path(items_path)), tags, ngram, items,
+                       encoded, critical, contamination, ())
 
 
 def _record(condition: str, enc: EncodedItem) -> dict[str, Any]:

@@ -410,3 +410,12 @@ def test_an_input_changed_since_the_build_is_refused(tmp_path: Path) -> None:
     result = run_cli("probe", out, items)
     assert result.exit_code == 2 and "market.txt: changed since the build" in result.stderr
     assert not (out / "probe" / "summary.json").exists()
+
+
+def test_an_unwritable_probe_directory_gives_one_line_and_exit_2(tmp_path: Path) -> None:
+    out = make_build(tmp_path, HARBOUR_FILES)
+    (out / "probe").write_text("a file where the probe directory should be\n", encoding="utf-8")
+    items = write_items(tmp_path / "items.tsv", [["c", "en", "The fish market opens.", "market"]])
+    result = run_cli("probe", out, items)
+    assert result.exit_code == 2 and "Traceback" not in result.output
+    assert len(result.stderr.strip().splitlines()) == 1 and "cannot write the probe outputs" in result.stderr

@@ -413,17 +413,17 @@ class Contamination:
 def scan_contamination(recipe: Recipe, items: tuple[Item, ...], n: int) -> tuple[Contamination, ...]:
     """Read the training split once; find items equal to a training sentence and items sharing
     a word n-gram of length ``n`` with a training sentence (n-grams never cross sentences)."""
+    words_of = _ChunkWords()   # items and training text get their words the same way
     by_text: dict[str, list[int]] = {}
     by_gram: dict[tuple[str, ...], list[int]] = {}
     for index, item in enumerate(items):
         by_text.setdefault(item.text, []).append(index)
-        words = ngram_words(item.tokens)
+        words = words_of(item.text)
         for start in range(len(words) - n + 1):
             owners = by_gram.setdefault(tuple(words[start:start + n]), [])
             if not owners or owners[-1] != index:
                 owners.append(index)
     first_words = {gram[0] for gram in by_gram}
-    words_of = _ChunkWords()
     sentence_hits = [0] * len(items)
     gram_hits = [0] * len(items)
     hits: list[list[Hit]] = [[] for _ in items]

@@ -10,6 +10,7 @@ from __future__ import annotations
 import contextlib
 import csv
 import dataclasses
+import difflib
 import hashlib
 import io
 import json
@@ -393,12 +394,23 @@ class _ChunkWords:
         return out
 
 
+def longest_shared_run(a: list[str], b: list[str]) -> tuple[int, int]:
+    """Start in ``b`` and length of the longest run of words that ``a`` and ``b`` share.
+
+    >>> longest_shared_run("a b c d".split(), "x b c d y b".split())
+    (1, 3)
+    """
+    match = difflib.SequenceMatcher(None, a, b, autojunk=False).find_longest_match(0, len(a), 0, len(b))
+    return match.b, match.size
+
+
 @dataclass(frozen=True)
 class Hit:
     kind: str               # "sentence": the whole normalised sentence; "ngram": a shared word n-gram
     path: str               # training input as recorded in build.json
     line: int
-    text: str               # the training sentence, or the first shared n-gram on that line
+    words: int              # length of the longest run of n-gram words shared with that line
+    text: str               # the training sentence, or that longest shared run (case-folded words)
 
 
 @dataclass(frozen=True)
@@ -416,9 +428,10 @@ def scan_contamination(recipe: Recipe, items: tuple[Item, ...], n: int) -> tuple
     words_of = _ChunkWords()   # items and training text get their words the same way
     by_text: dict[str, list[int]] = {}
     by_gram: dict[tuple[str, ...], list[int]] = {}
+    item_words = [words_of(item.text) for item in items]
     for index, item in enumerate(items):
         by_text.setdefault(item.text, []).append(index)
-        words = words_of(item.text)
+        words = item_words[index]
         for start in range(len(words) - n + 1):
             owners = by_gram.setdefault(tuple(words[start:start + n]), [])
             if not owners or owners[-1] != index:
@@ -432,7 +445,8 @@ def scan_contamination(recipe: Recipe, items: tuple[Item, ...], n: int) -> tuple
         for index in whole:
             sentence_hits[index] += 1
             if sentence_hits[index] <= MAX_HITS_PER_ITEM:
-                hits[index].append(Hit("sentence", sentence.path, sentence.line, sentence.text))
+                hits[index].append(Hit("sentence", sentence.path, sentence.line, len(item_words[index]),
+                                       sentence.text))
         if not by_gram:
             continue
         words = words_of(sentence.text)
@@ -447,7 +461,9 @@ def scan_contamination(recipe: Recipe, items: tuple[Item, ...], n: int) -> tuple
                 found.add(index)
                 gram_hits[index] += 1
                 if gram_hits[index] <= MAX_HITS_PER_ITEM:
-                    hits[index].append(Hit("ngram", sentence.path, sentence.line, " ".join(gram)))
+                    at, size = longest_shared_run(item_words[index], words)
+                    hits[index].append(Hit("ngram", sentence.path, sentence.line, size,
+                                           " ".join(words[at:at + size])))
     return tuple(Contamination(item.id, item.lang, sentence_hits[i], gram_hits[i], tuple(hits[i]))
                  for i, item in enumerate(items) if sentence_hits[i] or gram_hits[i])
 
@@ -618,7 +634,8 @@ def summary_json(result: ProbeResult) -> dict[str, Any]:
                             "homograph": c.homograph} for c in result.critical],
         "contamination": [{"id": c.item, "lang": c.lang, "sentence_hits": c.sentence_hits,
                            "ngram_hits": c.ngram_hits,
-                           "hits": [{"kind": h.kind, "path": h.path, "line": h.line, "text": h.text}
+                           "hits": [{"kind": h.kind, "path": h.path, "line": h.line, "words": h.words,
+                                     "text": h.text}
                                     for h in c.hits]} for c in result.contamination],
         "failing_items": list(result.failing_items),
         "files": list(result.files),
@@ -679,16 +696,15 @@ def summary_text(result: ProbeResult) -> str:
     out.append("")
     if result.contamination:
         out.append(f"Contamination (training split; whole sentences, and word n-grams of {result.ngram}):")
-        rows = [["item", "lang", "found", "where", "text"]]
+        rows = [["item", "lang", "found", "words", "where", "text"]]
         for c in result.contamination:
             for h in c.hits:
-                rows.append([c.item, c.lang, "sentence" if h.kind == "sentence" else f"{result.ngram}-gram",
-                             where(h.path, h.line), h.text])
+                rows.append([c.item, c.lang, h.kind, str(h.words), where(h.path, h.line), h.text])
             listed = sum(1 for h in c.hits if h.kind == "sentence"), sum(1 for h in c.hits if h.kind == "ngram")
             if (c.sentence_hits, c.ngram_hits) != listed:
-                rows.append([c.item, c.lang, "more", "", f"{c.sentence_hits} sentence and {c.ngram_hits} "
+                rows.append([c.item, c.lang, "more", "", "", f"{c.sentence_hits} sentence and {c.ngram_hits} "
                              f"n-gram lines in all; first {MAX_HITS_PER_ITEM} of each kind listed"])
-        out += _table(rows, set())
+        out += _table(rows, {3})
     else:
         out.append(f"Contamination: no item equals a training sentence or shares a word {result.ngram}-gram "
                    f"with the training split.")

@@ -247,6 +247,8 @@ CONTAMINATION_ITEMS = [
     ["verbatim", "de", "Das  Kind wartet am Kai auf das Postschiff. ", "Kind"],
     # shares exactly the 8 words "ferry captain counts seven crates of salted herring" with en/harbour.txt:2
     ["eight", "en", "Yesterday ferry captain counts seven crates of salted herring again.", "herring"],
+    # shares the 11 words "the ferry captain ... before noon" with en/harbour.txt:2
+    ["eleven", "en", "Today the ferry captain counts seven crates of salted herring before noon, again.", "ferry"],
     # shares exactly the 7 words "captain counts seven crates of salted herring"
     ["seven", "en", "Yesterday captain counts seven crates of salted herring again.", "herring"],
     # case and punctuation do not hide an overlap: its only 8 words match en/market.txt:1
@@ -275,7 +277,13 @@ def test_an_item_equal_to_a_training_sentence_is_found_with_its_file_and_line(co
 def test_an_item_sharing_an_8_gram_is_found_with_its_file_and_line(contamination_result) -> None:
     assert hits_of(contamination_result, "eight") == [("ngram", "en/harbour.txt", 2)]
     hit = next(c for c in contamination_result.contamination if c.item == "eight").hits[0]
-    assert hit.text == "ferry captain counts seven crates of salted herring"
+    assert (hit.words, hit.text) == (8, "ferry captain counts seven crates of salted herring")
+
+
+def test_an_n_gram_hit_reports_the_longest_shared_run_of_words(contamination_result) -> None:
+    hit = next(c for c in contamination_result.contamination if c.item == "eleven").hits[0]
+    assert (hit.line, hit.words) == (2, 11)
+    assert hit.text == "the ferry captain counts seven crates of salted herring before noon"
 
 
 def test_an_item_sharing_only_a_7_gram_is_not_flagged_at_8(contamination_result) -> None:

@@ -618,7 +618,7 @@ def summary_json(result: ProbeResult) -> dict[str, Any]:
         by_condition = {c: list(enc[i].oov_tokens) for c, enc in result.encoded.items() if enc[i].oov_tokens}
         if by_condition:
             oov.append({"id": item.id, "lang": item.lang, "tokens": by_condition,
-                        "critical_oov": sorted(c for c, enc in result.encoded.items() if enc[i].critical_oov)})
+                        "critical_oov": [c for c, enc in result.encoded.items() if enc[i].critical_oov]})
     return {
         "build": str(result.out),
         "items_file": result.items_path,

@@ -17,7 +17,7 @@ import bivocab.probe as probe_module
 from bivocab.build import build
 from bivocab.cli import main
 from bivocab.probe import frequency_per_million, probe, zipf_value
-from conftest import write_recipe
+from conftest import ROOT, copy_tree, write_recipe
 
 EN_HARBOUR = [
     "Gulls circle above the old lighthouse of Kellhaven every morning.",
@@ -427,3 +427,15 @@ def test_an_unwritable_probe_directory_gives_one_line_and_exit_2(tmp_path: Path)
     result = run_cli("probe", out, items)
     assert result.exit_code == 2 and "Traceback" not in result.output
     assert len(result.stderr.strip().splitlines()) == 1 and "cannot write the probe outputs" in result.stderr
+
+
+def test_the_demo_items_show_their_designed_findings_on_the_sample_corpus(sample_build: Path, tmp_path: Path) -> None:
+    build_copy = copy_tree(sample_build, tmp_path / "build")   # the session's build stays untouched
+    result = probe(build_copy, ROOT / "sample_corpus" / "items.tsv")
+    assert len(result.items) == 24
+    assert result.failing_items == ("en-01", "en-11", "de-01")
+    assert result.critical_oov_items == ("en-11",)
+    found = {c.item: [(h.kind, Path(h.path).name, h.line) for h in c.hits] for c in result.contamination}
+    assert found == {"en-01": [("sentence", "harbour.en.txt", 234)], "de-01": [("ngram", "harbour.de.txt", 1406)]}
+    labels = {item.id: dict(item.columns)["homograph"] for item in result.items}
+    assert {c.item: "yes" if c.homograph else "no" for c in result.critical} == labels

@@ -75,7 +75,7 @@ def _quiet(_: str) -> None:
 
 def input_files(recipe: Recipe) -> list[InputFile]:
     base = recipe.base_dir
-    return [InputFile(base / f, f, lang.tag) for lang in recipe.languages for f in lang.files]
+    return [InputFile(base / f, f, lang.tag, lang.read) for lang in recipe.languages for f in lang.files]
 
 
 def check_output_dir(out: Path, recipe: Recipe, force: bool) -> None:

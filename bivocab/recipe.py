@@ -28,11 +28,25 @@ POLICIES: dict[str, dict[str, str]] = {
 SPLITS: tuple[str, ...] = ("train", "valid", "test")
 
 
+INPUT_FORMATS: tuple[str, ...] = ("auto", "text", "jsonl", "csv", "tsv", "parquet", "datasets")
+
+
+@dataclass(frozen=True)
+class ReadSpec:
+    """How a language's input files are read (docs/inputs.md)."""
+
+    format: str = "auto"              # auto (by file extension) | text | jsonl | csv | tsv | parquet | datasets
+    field: str = "text"               # the JSON key / column holding the sentence (row formats)
+    split_sentences: bool = False     # split paragraph-per-line input into sentences (rule-based)
+    dataset_split: str = ""           # split of a saved datasets.DatasetDict ("" = its only split)
+
+
 @dataclass(frozen=True)
 class LanguageSpec:
     tag: str
     inputs: tuple[str, ...]           # globs as written, relative to the recipe directory
     files: tuple[str, ...] = ()       # resolved, sorted, relative to the recipe directory
+    read: ReadSpec = field(default_factory=ReadSpec)
 
 
 @dataclass(frozen=True)
@@ -279,10 +293,15 @@ def _read_languages(r: _Reader, path: str) -> tuple[LanguageSpec, ...]:
         table = f"languages.{tag}"
         if not is_valid_language_tag(tag):
             raise r.fail(table, 0, "", f"'{tag}' is not a valid BCP 47 language tag")
-        values = r.table(table, {"inputs": "strings"}, value=spec, required=("inputs",))
-        if not values["inputs"]:
+        values = r.table(table, {"inputs": "strings", "format": INPUT_FORMATS, "field": str,
+                                 "split_sentences": bool, "dataset_split": str},
+                         value=spec, required=("inputs",))
+        inputs = values.pop("inputs")
+        if not inputs:
             raise r.fail(table, 0, "inputs", "must list at least one file or glob")
-        out.append(LanguageSpec(tag=tag, inputs=values["inputs"]))
+        if "field" in values and not values["field"]:
+            raise r.fail(table, 0, "field", "must not be empty")
+        out.append(LanguageSpec(tag=tag, inputs=inputs, read=ReadSpec(**values)))
     if len(out) != 2:
         raise RecipeError(f"{path}: [languages] must define exactly two languages, found {len(out)}")
     if out[0].tag.lower() == out[1].tag.lower():
@@ -330,6 +349,11 @@ def _read_conditions(r: _Reader, path: str, vocab: VocabSpec) -> tuple[Condition
     return tuple(out)
 
 
+def is_saved_dataset(path: str) -> bool:
+    """A directory written by ``datasets`` ``save_to_disk`` (a Dataset or a DatasetDict)."""
+    return any(os.path.exists(os.path.join(path, name)) for name in ("state.json", "dataset_dict.json"))
+
+
 def resolve_recipe_inputs(recipe: Recipe) -> Recipe:
     """Expand each language's globs into a sorted file list; a glob matching nothing is an error."""
     base = recipe.base_dir
@@ -342,14 +366,16 @@ def resolve_recipe_inputs(recipe: Recipe) -> Recipe:
                 matches = sorted(glob.glob(absolute, recursive=True))
             except (OSError, RecursionError) as exc:
                 raise InputError(f"{recipe.path}: [languages.{lang.tag}] inputs: cannot expand {pattern!r}: {exc}") from None
-            matches = [m for m in matches if not os.path.isdir(m)]
+            # A directory is an input only as a saved `datasets` dataset.
+            matches = [m for m in matches if not os.path.isdir(m) or lang.read.format in ("auto", "datasets")
+                       and is_saved_dataset(m)]
             if not matches:
                 raise InputError(f"{recipe.path}: [languages.{lang.tag}] inputs: {pattern!r} matches no file")
             for m in matches:
                 rel = os.path.relpath(m, base)
                 if rel not in files:
                     files.append(rel)
-        languages.append(LanguageSpec(tag=lang.tag, inputs=lang.inputs, files=tuple(files)))
+        languages.append(LanguageSpec(tag=lang.tag, inputs=lang.inputs, files=tuple(files), read=lang.read))
     return Recipe(**{**{f: getattr(recipe, f) for f in recipe.__dataclass_fields__}, "languages": tuple(languages)})
 
 
@@ -424,7 +450,8 @@ def recipe_from_manifest(manifest: dict[str, Any], out: str | os.PathLike[str]) 
     recipe_path = os.path.normpath(os.path.join(str(out), manifest["recipe_file"]))
     conditions = tuple(ConditionSpec(**{**c, "share": tuple(c["share"]), "separate": tuple(c["separate"]),
                                         "vocab": VocabSpec(**c["vocab"])}) for c in data["conditions"])
-    languages = tuple(LanguageSpec(tag=l["tag"], inputs=tuple(l["inputs"]), files=tuple(l["files"]))
+    languages = tuple(LanguageSpec(tag=l["tag"], inputs=tuple(l["inputs"]), files=tuple(l["files"]),
+                                   read=ReadSpec(**l.get("read", {})))
                       for l in data["languages"])
     return Recipe(path=recipe_path, name=data["name"], seed=data["seed"], languages=languages,
                   clean=CleanSpec(**data["clean"]), splits=SplitSpec(**data["splits"]),

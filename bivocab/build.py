@@ -234,11 +234,14 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
     written: list[str] = []
     shard_paths: dict[str, dict[str, list[str]]] = {c.name: {} for c in recipe.conditions}
     stats = {c.name: {s: [0, 0, [0] * len(tags), [0] * len(tags)] for s in SPLITS} for c in recipe.conditions}
+    mixing: dict[str, dict] = {}
     starts = [np.concatenate(([0], np.cumsum(a["lengths"])[:-1])).astype(np.int64) if len(a["lengths"])
               else np.zeros(0, np.int64) for a in arrays]
     for si, split in enumerate(SPLITS):
         rows = [np.flatnonzero(np.asarray(a["splits"]) == si) for a in arrays]
-        order = mix_split(si, rows, recipe.mix, recipe.seed)
+        order = mix_split(si, rows, recipe.mix, recipe.seed, [a["lengths"] for a in arrays])
+        if order.sampling is not None:
+            mixing[split] = order.sampling
         for cond in recipe.conditions:
             shard_paths[cond.name][split] = []
         for shard_index, members in enumerate(_shard_members(order, arrays, recipe.shards.max_tokens)):
@@ -283,6 +286,7 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
             s: SplitSummary(v[0], v[1], tuple(v[2]), tuple(v[3])) for s, v in stats[cond.name].items()})
         for cond, vocab in zip(recipe.conditions, vocabs))
     manifest = _manifest(recipe, out, files, hashes, per_file, scans, vocabs, shard_paths, written, summaries)
+    manifest["mixing"] = mixing
     atomic_write_text(out / MANIFEST, canonical_json(manifest))
     return BuildResult(out, manifest, summaries)
 

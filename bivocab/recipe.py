@@ -75,9 +75,20 @@ class VocabSpec:
     pad: bool = True                  # reserve id 0 for <pad>
 
 
+MIX_ORDERS: tuple[str, ...] = ("shuffled", "alternating", "blocked")
+BALANCE_UNITS: tuple[str, ...] = ("none", "sentences", "tokens")
+
+
 @dataclass(frozen=True)
 class MixSpec:
-    order: str = "shuffled"           # shuffled
+    """Order and balance of the two languages in each split (docs/mixing.md)."""
+
+    order: str = "shuffled"           # shuffled | alternating | blocked
+    within_language: str = "shuffled"  # alternating/blocked: shuffled (seeded) | input order
+    balance: str = "none"             # none | sentences | tokens: the unit of the sizes n_i
+    alpha: float = 0.0                # q_i ∝ p_i^alpha; 0 = equal sizes, 1 = as found
+    resample: str = "down"            # down (drop from larger) | up (repeat the smaller)
+    balance_splits: tuple[str, ...] = ("train",)
 
 
 @dataclass(frozen=True)
@@ -261,7 +272,14 @@ def load_recipe(path: str | os.PathLike[str], resolve_inputs: bool = True) -> Re
         raise r.fail("splits", 0, "train", "must be > 0: the vocabulary is counted on train")
 
     vocab = _vocab_spec(r, "vocab", 0, r.table("vocab", _VOCAB_KEYS), VocabSpec())
-    mix = MixSpec(**r.table("mix", {"order": ("shuffled",)}))
+    mix = MixSpec(**r.table("mix", {"order": MIX_ORDERS, "within_language": ("shuffled", "input"),
+                                    "balance": BALANCE_UNITS, "alpha": float, "resample": ("down", "up"),
+                                    "balance_splits": "strings"}))
+    if not 0.0 <= mix.alpha <= 1.0:
+        raise r.fail("mix", 0, "alpha", f"must be between 0 and 1, got {mix.alpha}")
+    for split in mix.balance_splits:
+        if split not in SPLITS:
+            raise r.fail("mix", 0, "balance_splits", f"unknown split {split!r} (splits: {', '.join(SPLITS)})")
     shards = ShardSpec(**r.table("shards", {"format": ("npy",), "max_tokens": int}))
     if shards.max_tokens <= 0:
         raise r.fail("shards", 0, "max_tokens", "must be > 0")
@@ -455,5 +473,6 @@ def recipe_from_manifest(manifest: dict[str, Any], out: str | os.PathLike[str]) 
                       for l in data["languages"])
     return Recipe(path=recipe_path, name=data["name"], seed=data["seed"], languages=languages,
                   clean=CleanSpec(**data["clean"]), splits=SplitSpec(**data["splits"]),
-                  vocab=VocabSpec(**data["vocab"]), mix=MixSpec(**data["mix"]),
+                  vocab=VocabSpec(**data["vocab"]),
+                  mix=MixSpec(**{**data["mix"], "balance_splits": tuple(data["mix"].get("balance_splits", ("train",)))}),
                   shards=ShardSpec(**data["shards"]), conditions=conditions)

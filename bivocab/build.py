@@ -24,7 +24,7 @@ from .mix import SplitOrder, mix_split
 from .recipe import SPLITS, Recipe, load_recipe
 from .scan import ScanResult, ScanTask, TypeTable, ordered_map, ragged_gather, scan_block
 from .segment import token_class
-from .shards import PROVENANCE_DTYPE, shard_stem, write_npy
+from .shards import PROVENANCE_DTYPE, ShardWriter, shard_stem, write_npy
 from .sources import InputFile, file_sha256, read_blocks
 from .splits import split_thresholds
 from .vocab import Vocabulary, build_vocabulary, tokenizer_json, vocab_tsv
@@ -235,6 +235,7 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
     shard_paths: dict[str, dict[str, list[str]]] = {c.name: {} for c in recipe.conditions}
     stats = {c.name: {s: [0, 0, [0] * len(tags), [0] * len(tags)] for s in SPLITS} for c in recipe.conditions}
     mixing: dict[str, dict] = {}
+    shard_writer = ShardWriter(out, recipe.shards, tags, [f.display for f in files])
     starts = [np.concatenate(([0], np.cumsum(a["lengths"])[:-1])).astype(np.int64) if len(a["lengths"])
               else np.zeros(0, np.int64) for a in arrays]
     for si, split in enumerate(SPLITS):
@@ -262,8 +263,8 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
             write_npy(out / path, prov)
             written.append(path)
             for cond, vocab in zip(recipe.conditions, vocabs):
-                paths = _write_condition_shard(out, cond.name, stem, vocab, langs, gathered,
-                                               stats[cond.name][split])
+                paths = _write_condition_shard(shard_writer, cond.name, stem, vocab, langs, gathered,
+                                               stats[cond.name][split], prov)
                 written += paths
                 shard_paths[cond.name][split].append(f"{cond.name}/{stem}")
 
@@ -307,8 +308,9 @@ def _shard_members(order: SplitOrder, arrays: list[dict[str, np.ndarray]], max_t
     yield from np.split(np.arange(len(lengths)), cuts)
 
 
-def _write_condition_shard(out: Path, condition: str, stem: str, vocab: Vocabulary, langs: np.ndarray,
-                           gathered: list[tuple[np.ndarray, np.ndarray, np.ndarray]], stat: list) -> list[str]:
+def _write_condition_shard(writer: ShardWriter, condition: str, stem: str, vocab: Vocabulary, langs: np.ndarray,
+                           gathered: list[tuple[np.ndarray, np.ndarray, np.ndarray]], stat: list,
+                           provenance: np.ndarray) -> list[str]:
     eos = vocab.eos_ids is not None
     n = len(langs)
     sent_len = np.empty(n, dtype=np.int64)
@@ -327,12 +329,7 @@ def _write_condition_shard(out: Path, condition: str, stem: str, vocab: Vocabula
         stat[3][li] += len(ids)
     stat[0] += n
     stat[1] += int(sum(len(t) for _, _, t in gathered))
-    paths = []
-    for suffix, array in (("tokens", tokens), ("offsets", offsets), ("langs", langs.astype(np.uint8))):
-        path = f"{condition}/{stem}.{suffix}.npy"
-        write_npy(out / path, array)
-        paths.append(path)
-    return paths
+    return writer.write(f"{condition}/{stem}", tokens, offsets, langs.astype(np.uint8), provenance)
 
 
 def types_tsv(scan: LanguageScan) -> str:

@@ -91,9 +91,12 @@ class MixSpec:
     balance_splits: tuple[str, ...] = ("train",)
 
 
+SHARD_FORMATS: tuple[str, ...] = ("npy", "parquet", "npy+parquet")
+
+
 @dataclass(frozen=True)
 class ShardSpec:
-    format: str = "npy"
+    format: str = "npy"               # npy | parquet | npy+parquet (both, same sentences)
     max_tokens: int = 1_000_000       # a shard is closed after the sentence that reaches this
 
 
@@ -280,7 +283,7 @@ def load_recipe(path: str | os.PathLike[str], resolve_inputs: bool = True) -> Re
     for split in mix.balance_splits:
         if split not in SPLITS:
             raise r.fail("mix", 0, "balance_splits", f"unknown split {split!r} (splits: {', '.join(SPLITS)})")
-    shards = ShardSpec(**r.table("shards", {"format": ("npy",), "max_tokens": int}))
+    shards = ShardSpec(**r.table("shards", {"format": SHARD_FORMATS, "max_tokens": int}))
     if shards.max_tokens <= 0:
         raise r.fail("shards", 0, "max_tokens", "must be > 0")
 

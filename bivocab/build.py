@@ -18,6 +18,7 @@ import numpy as np
 
 from . import __version__
 from .errors import BivocabError, OutputError
+from .hygiene import prepare_hygiene
 from .manifest import (LOCK, MANIFEST, WORK, atomic_open, atomic_write_text, build_lock,
                        canonical_json, environment, read_manifest, sha256_file)
 from .mix import SplitOrder, mix_split
@@ -199,8 +200,10 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
     writers = [_WorkArrays(work, tag) for tag in tags]
     lang_of_file = [tags.index(f.language) for f in files]
     per_file: list[Counter] = [Counter() for _ in files]
+    hygiene = prepare_hygiene(recipe, files, jobs)
     for result in ordered_map(scan_block, _scan_tasks(recipe, files), jobs):
         li = lang_of_file[result.file_index]
+        result = hygiene.filter_scan(result, li)
         scan = scans[li]
         per_file[result.file_index].update(result.counters)
         lut = scan.table.merge(result.local_types)
@@ -288,6 +291,7 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
         for cond, vocab in zip(recipe.conditions, vocabs))
     manifest = _manifest(recipe, out, files, hashes, per_file, scans, vocabs, shard_paths, written, summaries)
     manifest["mixing"] = mixing
+    manifest["hygiene"] = hygiene.report()
     atomic_write_text(out / MANIFEST, canonical_json(manifest))
     return BuildResult(out, manifest, summaries)
 

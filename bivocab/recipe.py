@@ -101,6 +101,21 @@ class ShardSpec:
 
 
 @dataclass(frozen=True)
+class HygieneSpec:
+    """Corpus hygiene steps applied after cleaning, each off by default (docs/inputs.md)."""
+
+    duplicates: str = "keep"          # keep | drop (later exact copies within a language)
+    cross_language: str = "off"       # off | keep (report only) | drop-both | keep-first
+    foreign: str = "off"              # off | report | drop: sentences that look like the other language
+    foreign_min_chars: int = 20       # shorter sentences are never judged foreign
+    foreign_margin: float = 0.1       # mean log-likelihood ratio per n-gram needed to flag
+    examples: int = 10                # examples per finding recorded in build.json
+    exclude_items: tuple[str, ...] = ()   # item files (CSV/TSV) whose sentences are excluded
+    exclude_column: str = "sentence"  # the column of the item files holding the sentence
+    exclude_from: str = "train"       # train | all: the splits the items are excluded from
+
+
+@dataclass(frozen=True)
 class ConditionSpec:
     name: str
     policy: str
@@ -122,6 +137,7 @@ class Recipe:
     mix: MixSpec
     shards: ShardSpec
     conditions: tuple[ConditionSpec, ...]
+    hygiene: HygieneSpec = field(default_factory=HygieneSpec)
 
     @property
     def base_dir(self) -> Path:
@@ -248,7 +264,7 @@ def load_recipe(path: str | os.PathLike[str], resolve_inputs: bool = True) -> Re
         raise RecipeError(f"{path}: invalid TOML: {exc}") from None
 
     r = _Reader(path, text, data)
-    top_allowed = {"build", "languages", "clean", "splits", "vocab", "mix", "shards", "condition"}
+    top_allowed = {"build", "languages", "clean", "splits", "vocab", "mix", "shards", "condition", "hygiene"}
     for key in data:
         if key not in top_allowed:
             raise r.fail(key, 0, "", f"unknown table (known tables: {', '.join(sorted(top_allowed))})")
@@ -287,10 +303,18 @@ def load_recipe(path: str | os.PathLike[str], resolve_inputs: bool = True) -> Re
     if shards.max_tokens <= 0:
         raise r.fail("shards", 0, "max_tokens", "must be > 0")
 
+    hygiene = HygieneSpec(**r.table("hygiene", {
+        "duplicates": ("keep", "drop"), "cross_language": ("off", "keep", "drop-both", "keep-first"),
+        "foreign": ("off", "report", "drop"), "foreign_min_chars": int, "foreign_margin": float,
+        "examples": int, "exclude_items": "strings", "exclude_column": str, "exclude_from": ("train", "all")}))
+    for key in ("foreign_min_chars", "examples"):
+        if getattr(hygiene, key) < 0:
+            raise r.fail("hygiene", 0, key, "must be >= 0")
+
     conditions = _read_conditions(r, path, vocab)
     recipe = Recipe(path=path, name=build["name"], seed=build["seed"], languages=languages,
                     clean=clean, splits=splits, vocab=vocab, mix=mix, shards=shards,
-                    conditions=conditions)
+                    conditions=conditions, hygiene=hygiene)
     if resolve_inputs:
         recipe = resolve_recipe_inputs(recipe)
     return recipe
@@ -478,4 +502,6 @@ def recipe_from_manifest(manifest: dict[str, Any], out: str | os.PathLike[str]) 
                   clean=CleanSpec(**data["clean"]), splits=SplitSpec(**data["splits"]),
                   vocab=VocabSpec(**data["vocab"]),
                   mix=MixSpec(**{**data["mix"], "balance_splits": tuple(data["mix"].get("balance_splits", ("train",)))}),
-                  shards=ShardSpec(**data["shards"]), conditions=conditions)
+                  shards=ShardSpec(**data["shards"]), conditions=conditions,
+                  hygiene=HygieneSpec(**{**data.get("hygiene", {}),
+                                         "exclude_items": tuple(data.get("hygiene", {}).get("exclude_items", ()))}))

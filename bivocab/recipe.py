@@ -433,9 +433,12 @@ name = "my-study"        # names the build; recorded in build.json
 seed = 1                 # the only source of randomness (splits, mixing)
 
 # Exactly two languages; each key is a BCP 47 tag. Inputs are globs of UTF-8 text files,
-# one sentence per line (.txt, or compressed .gz / .bz2 / .xz / .zst).
+# one sentence per line (.txt, or compressed .gz / .bz2 / .xz / .zst), or of row formats.
 [languages.en]
 inputs = ["corpus/en/*.txt"]
+# format = "auto"        # auto (by extension) | text | jsonl | csv | tsv | parquet | datasets
+# field = "text"         # the JSON key / column with the sentence (row formats)
+# split_sentences = false  # true: split paragraph-per-line text into sentences (rule-based)
 
 [languages.de]
 inputs = ["corpus/de/*.txt"]
@@ -460,11 +463,22 @@ unknown = "shared"       # shared: one <unk>; per-language: <unk:en>, <unk:de>
 eos = "shared"           # shared | per-language | none: the end-of-sentence token after each sentence
 pad = true               # reserve id 0 for <pad>
 
+[hygiene]                # each step is optional and counted in build.json
+duplicates = "keep"      # keep | drop: later exact copies within a language
+cross_language = "off"   # off | keep (report) | drop-both | keep-first: same sentence in both corpora
+foreign = "off"          # off | report | drop: sentences that look like the other language
+# exclude_items = ["items.tsv"]   # stimulus files (CSV/TSV); their sentences are kept out of training
+# exclude_column = "sentence"
+# exclude_from = "train"          # train | all
+
 [mix]
-order = "shuffled"       # the two languages are shuffled together (seeded), same order in every condition
+order = "shuffled"       # shuffled | alternating | blocked; the same order in every condition
+balance = "none"         # none | sentences | tokens: resample the languages (train split by default)
+alpha = 0.0              # with balance: target share q_i ∝ p_i^alpha (0 = equal, 1 = as found)
+resample = "down"        # down: drop from the larger language | up: repeat the smaller one
 
 [shards]
-format = "npy"
+format = "npy"           # npy | parquet | npy+parquet
 max_tokens = 1000000     # tokens per shard file (a shard ends after the sentence that reaches it)
 
 # One [[condition]] per vocabulary-sharing condition, all built from the same corpus.

@@ -209,3 +209,49 @@ def test_sentence_splitter_keeps_abbreviations_initials_and_german_ordinals() ->
     assert split_sentences("Er kam am 12. Mai, z.B. mit dem Boot. Sie nicht.", "de") == \
         ["Er kam am 12. Mai, z.B. mit dem Boot.", "Sie nicht."]
     assert split_sentences("it was 3 p.m. then we left. ok", "en") == ["it was 3 p.m. then we left. ok"]
+
+
+def test_a_build_from_json_lines_records_the_file_line_of_each_sentence(tmp_path: Path) -> None:
+    import numpy as np
+
+    from bivocab.build import build
+
+    (tmp_path / "en.jsonl").write_text("\n".join(json.dumps({"text": t}) for t in SENTENCES) + "\n",
+                                       encoding="utf-8")
+    recipe = write_recipe(tmp_path, "en.jsonl", "split_sentences = true")
+    manifest = build(recipe, tmp_path / "out").manifest
+    lines = []
+    for stems in manifest["conditions"]["shared"]["shards"].values():
+        for stem in stems:
+            prov = np.load(tmp_path / "out" / "provenance" / f"{stem.split('/', 1)[1]}.npy")
+            lines += prov["line"][prov["input"] == 0].tolist()
+    assert sorted(lines) == [1, 2, 3, 4, 5]
+    assert manifest["inputs"][0]["lines"] == 5
+
+
+def test_recipe_recorded_in_build_json_rebuilds_with_every_new_key(tmp_path: Path) -> None:
+    from bivocab.build import build
+    from bivocab.recipe import recipe_from_manifest
+
+    (tmp_path / "en.tsv").write_text("id\tbody\n1\tA pier .\n", encoding="utf-8")
+    (tmp_path / "items.tsv").write_text("sentence\nNothing here .\n", encoding="utf-8")
+    extra = 'format = "tsv"\nfield = "body"\nsplit_sentences = true\n' + """
+[mix]
+order = "alternating"
+within_language = "input"
+balance = "tokens"
+alpha = 0.3
+resample = "up"
+balance_splits = ["train", "valid"]
+[shards]
+format = "npy+parquet"
+[hygiene]
+duplicates = "drop"
+cross_language = "keep-first"
+foreign = "report"
+exclude_items = ["items.tsv"]
+exclude_from = "all"
+"""
+    recipe = load_recipe(write_recipe(tmp_path, "en.tsv", extra))
+    manifest = build(recipe, tmp_path / "out").manifest
+    assert recipe_from_manifest(manifest, tmp_path / "out") == recipe

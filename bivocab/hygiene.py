@@ -13,6 +13,7 @@ import hashlib
 import math
 from collections import Counter
 from dataclasses import dataclass, replace
+from itertools import repeat
 from typing import Any, Iterable
 
 import numpy as np
@@ -93,37 +94,42 @@ def char_ngrams(text: str) -> list[str]:
 
 @dataclass(frozen=True)
 class NgramModel:
-    """Multinomial naive Bayes over character n-grams, one class per language, add-one
-    smoothed over the union of n-grams seen in training, equal priors."""
+    """Multinomial naive Bayes over character n-grams, two classes (the languages), add-one
+    smoothed over the union of n-grams seen in training, equal priors.  Stored as the
+    log-likelihood ratio log P(g | second) - log P(g | first) of each n-gram, so scoring a
+    sentence is one table look-up per n-gram."""
 
-    log_probs: tuple[dict[str, float], ...]   # per language: n-gram -> log P(g | language)
-    unseen: tuple[float, ...]                  # per language: log P of an n-gram it never saw
+    log_ratio: dict[str, float]
+    unseen_ratio: float            # the ratio for an n-gram neither language saw
 
     @classmethod
     def train(cls, samples: list[list[str]]) -> "NgramModel":
-        counts = [Counter(g for text in texts for g in char_ngrams(text)) for texts in samples]
-        vocabulary = len(set().union(*counts)) + 1
-        log_probs, unseen = [], []
-        for c in counts:
-            denominator = math.log(sum(c.values()) + vocabulary)
-            log_probs.append({g: math.log(n + 1) - denominator for g, n in c.items()})
-            unseen.append(-denominator)
-        return cls(tuple(log_probs), tuple(unseen))
+        first, second = (Counter(g for text in texts for g in char_ngrams(text)) for texts in samples)
+        vocabulary = len(first.keys() | second.keys()) + 1
+        log_first = math.log(sum(first.values()) + vocabulary)
+        log_second = math.log(sum(second.values()) + vocabulary)
+        ratio = {g: (math.log(second[g] + 1) - log_second) - (math.log(first[g] + 1) - log_first)
+                 for g in first.keys() | second.keys()}
+        return cls(ratio, log_first - log_second)
 
-    def scores(self, text: str) -> list[float]:
-        """Mean log-likelihood per n-gram of ``text`` under each language."""
+    def mean_log_ratio(self, text: str) -> float:
+        """Mean over the text's n-grams of log P(g | second) - log P(g | first).
+
+        >>> model = NgramModel.train([["the harbour"], ["der hafen"]])
+        >>> model.mean_log_ratio("the") < 0 < model.mean_log_ratio("der")
+        True
+        """
         grams = char_ngrams(text)
-        return [sum(table.get(g, miss) for g in grams) / len(grams)
-                for table, miss in zip(self.log_probs, self.unseen)]
+        return sum(map(self.log_ratio.get, grams, repeat(self.unseen_ratio, len(grams)))) / len(grams)
 
 
 def is_foreign(model: NgramModel, text: str, own: int, min_chars: int, margin: float) -> bool:
     """True when ``text`` is at least ``min_chars`` long and its mean log-likelihood ratio
-    (other language against its own) exceeds ``margin``."""
+    (other language against its own, per n-gram) exceeds ``margin``."""
     if len(text) < min_chars:
         return False
-    scores = model.scores(text)
-    return scores[1 - own] - scores[own] > margin
+    ratio = model.mean_log_ratio(text)
+    return (ratio if own == 0 else -ratio) > margin
 
 
 # --- the pre-pass and the filter -----------------------------------------------------------

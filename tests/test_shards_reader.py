@@ -176,3 +176,19 @@ def test_file_hashes_in_the_manifest_cover_the_parquet_shards(both: Path) -> Non
     for entry in manifest["files"]:
         if entry["path"].endswith(".parquet"):
             assert hashlib.sha256((both / entry["path"]).read_bytes()).hexdigest() == entry["sha256"]
+
+
+def test_torch_adapter_without_torch_is_one_clear_error(both: Path, monkeypatch) -> None:
+    import builtins
+
+    real_import = builtins.__import__
+
+    def no_torch(name, *args, **kwargs):
+        if name == "torch" or name.startswith("torch."):
+            raise ImportError("no torch")
+        return real_import(name, *args, **kwargs)
+
+    monkeypatch.delitem(__import__("sys").modules, "bivocab.torchdata", raising=False)
+    monkeypatch.setattr(builtins, "__import__", no_torch)
+    with pytest.raises(BivocabError, match=r"needs the optional package torch"):
+        torch_dataset(both, "shared", "train", length=8)

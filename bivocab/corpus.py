@@ -6,10 +6,9 @@ contamination scans): each sentence comes with its language, provenance and spli
 
 from __future__ import annotations
 
+from collections import Counter
 from dataclasses import dataclass
 from typing import Iterator
-
-from collections import Counter
 
 import numpy as np
 

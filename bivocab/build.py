@@ -28,7 +28,7 @@ from .segment import token_class
 from .shards import PROVENANCE_DTYPE, ShardWriter, shard_stem, write_npy
 from .sources import InputFile, file_sha256, read_blocks
 from .splits import split_thresholds
-from .vocab import Vocabulary, build_vocabulary, tokenizer_json, vocab_tsv
+from .vocab import Vocabulary, build_vocabulary, tokenizer_json, tsv_text, vocab_tsv
 
 INCOMPLETE = ".bivocab-incomplete"
 
@@ -341,11 +341,10 @@ def types_tsv(scan: LanguageScan) -> str:
     tie rule (train count descending, then code points)."""
     counts = scan.split_counts
     order = sorted(range(len(scan.table)), key=lambda i: (-int(counts[0, i]), scan.table.surfaces[i]))
-    lines = ["surface\tclass\tcount_train\tcount_valid\tcount_test"]
-    for i in order:
-        s = scan.table.surfaces[i]
-        lines.append(f"{s}\t{token_class(s)}\t{counts[0, i]}\t{counts[1, i]}\t{counts[2, i]}")
-    return "\n".join(lines) + "\n"
+    surfaces = scan.table.surfaces
+    rows = [[surfaces[i], token_class(surfaces[i]), str(counts[0, i]), str(counts[1, i]), str(counts[2, i])]
+            for i in order]
+    return tsv_text(["surface", "class", "count_train", "count_valid", "count_test"], rows)
 
 
 def _manifest(recipe: Recipe, out: Path, files: list[InputFile], hashes: dict[str, str],

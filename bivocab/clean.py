@@ -36,6 +36,20 @@ class CleanLines:
     counters: Counter
 
 
+def apply_normal_form(text: str, form: str) -> str:
+    """The Unicode normal form step alone (``NFC``, ``NFKC`` or ``none``), with the Unicode
+    version of Python's ``unicodedata`` (recorded in build.json as ``unicodedata``).
+
+    >>> apply_normal_form("e\u0301", "NFC") == "\u00e9"
+    True
+    """
+    if form == "none":
+        return text
+    if unicodedata.is_normalized(form, text):
+        return text
+    return unicodedata.normalize(form, text)
+
+
 def normalise_lines(text: str, spec: CleanSpec) -> str:
     """Clean LF-separated lines (steps 2-4 above) in one pass over the whole text.
 
@@ -45,7 +59,7 @@ def normalise_lines(text: str, spec: CleanSpec) -> str:
     text = _CONTROL_RE.sub(" ", text)
     text = _SPACE_RE.sub(" ", text)
     if spec.normal_form != "none":
-        text = unicodedata.normalize(spec.normal_form, text)
+        text = apply_normal_form(text, spec.normal_form)
         if spec.normal_form == "NFKC":  # compatibility spaces (U+2000..) may appear again
             text = _SPACE_RE.sub(" ", text)
     text = _MULTI_SPACE_RE.sub(" ", text)

@@ -15,7 +15,8 @@ from collections import Counter
 from typing import Any, Iterable, Iterator
 
 from .errors import InputError
-from .sources import BLOCK_BYTES, Block, InputFile, open_binary, read_text_blocks
+from . import sources
+from .sources import Block, InputFile, open_binary, read_text_blocks
 
 ROWS_PER_BLOCK = 16384
 
@@ -44,7 +45,7 @@ class _BlockBuilder:
         self.counters[reason] += 1
 
     def full(self) -> bool:
-        return len(self.lines) >= ROWS_PER_BLOCK or self.size >= BLOCK_BYTES
+        return len(self.lines) >= ROWS_PER_BLOCK or self.size >= sources.BLOCK_BYTES
 
     def take(self) -> Block | None:
         if not self.lines and not self.rows:

@@ -105,7 +105,7 @@ def _read(handle: BinaryIO, size: int, display: str) -> bytes:
         raise InputError(f"{display}: cannot read input ({name}: {exc})") from None
 
 
-def read_blocks(source: InputFile, file_index: int, block_bytes: int = BLOCK_BYTES) -> Iterator[Block]:
+def read_blocks(source: InputFile, file_index: int, block_bytes: int | None = None) -> Iterator[Block]:
     """Yield the input as blocks of whole lines, in the input's format (see the module
     docstring), split into sentences when the recipe asks for it."""
     from .rows import read_row_blocks
@@ -143,13 +143,14 @@ def input_format(source: InputFile) -> str:
     return _EXTENSION_FORMATS.get(suffixes[-1], "text") if suffixes else "text"
 
 
-def read_text_blocks(source: InputFile, file_index: int, block_bytes: int = BLOCK_BYTES) -> Iterator[Block]:
+def read_text_blocks(source: InputFile, file_index: int, block_bytes: int | None = None) -> Iterator[Block]:
     """Yield a text file as blocks of whole lines (LF-separated, no trailing LF).
 
     A byte-order mark at the start of the file is removed; CRLF and lone CR become LF.
     The file's size and modification time are compared before and after reading, so a file
     that changes while it is read is reported instead of silently mixing two versions.
     """
+    block_bytes = block_bytes or BLOCK_BYTES
     try:
         before = os.stat(source.path)
     except OSError as exc:

@@ -50,15 +50,20 @@ def _contains(sorted_values: np.ndarray, values: np.ndarray) -> np.ndarray:
 
 
 class SeenHashes:
-    """The set of hashes seen so far: a large sorted array plus a small recent one that is
-    merged into it when it grows, so each block costs O(block log block + recent)."""
+    """The set of hashes seen so far, as sorted uint64 arrays of decreasing size (each at
+    least twice the next); a new block's unseen hashes become the smallest array, and two
+    arrays are merged (a linear merge of two sorted runs) when the smaller reaches half the
+    larger.  Memory: 8 bytes per distinct hash, plus one merge's copy while merging."""
 
     def __init__(self) -> None:
-        self.old = np.zeros(0, dtype=np.uint64)
-        self.recent = np.zeros(0, dtype=np.uint64)
+        self.levels: list[np.ndarray] = []
 
     def __len__(self) -> int:
-        return len(self.old) + len(self.recent)
+        return sum(len(level) for level in self.levels)
+
+    @property
+    def nbytes(self) -> int:
+        return sum(level.nbytes for level in self.levels)
 
     def first_occurrences(self, hashes: np.ndarray) -> np.ndarray:
         """True for each hash never seen before (earlier in this array or in earlier calls);
@@ -70,13 +75,18 @@ class SeenHashes:
         >>> seen.first_occurrences(np.array([7, 9], np.uint64)).tolist()
         [False, True]
         """
-        unique, first = np.unique(hashes, return_index=True)
-        new = ~(_contains(self.old, unique) | _contains(self.recent, unique))
+        unique, first = np.unique(np.asarray(hashes, dtype=np.uint64), return_index=True)
+        known = np.zeros(len(unique), dtype=bool)
+        for level in self.levels:
+            known |= _contains(level, unique)
         mask = np.zeros(len(hashes), dtype=bool)
-        mask[first[new]] = True
-        self.recent = np.union1d(self.recent, unique[new])
-        if len(self.recent) > 65536 and len(self.recent) * 8 > len(self.old):
-            self.old, self.recent = np.union1d(self.old, self.recent), np.zeros(0, dtype=np.uint64)
+        mask[first[~known]] = True
+        if (~known).any():
+            self.levels.append(unique[~known])
+            while len(self.levels) > 1 and 2 * len(self.levels[-1]) >= len(self.levels[-2]):
+                merged = np.concatenate(self.levels[-2:])
+                merged.sort(kind="stable")   # timsort: two sorted runs merge in linear time
+                self.levels[-2:] = [merged]
         return mask
 
 

@@ -152,8 +152,8 @@ def test_seen_hashes_store_eight_bytes_per_distinct_sentence() -> None:
     for block in blocks:
         seen.first_occurrences(block)
     distinct = len(np.unique(np.concatenate(blocks)))
-    assert len(seen.old) > 0 and seen.old.dtype == seen.recent.dtype == np.uint64
-    assert seen.old.nbytes + seen.recent.nbytes == 8 * distinct
+    assert all(level.dtype == np.uint64 for level in seen.levels) and len(seen.levels) < 10
+    assert seen.nbytes == 8 * distinct == 8 * len(seen)
 
 
 def test_seen_hashes_agree_with_a_python_set() -> None:

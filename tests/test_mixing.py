@@ -143,3 +143,19 @@ def test_appending_sentences_never_moves_an_old_sentence_to_another_split(tmp_pa
     assert len(before) == 600 and len(after) == 1050
     assert all(after[key] == split for key, split in before.items())
     assert {"train", "valid", "test"} <= set(before.values())   # the test can fail: all splits used
+
+
+def test_the_clean_balanced_example_recipe_builds_on_the_sample_corpus(tmp_path: Path) -> None:
+    recipe = Path(__file__).resolve().parent.parent / "recipes" / "clean-balanced.toml"
+    result = build(recipe, tmp_path / "out")
+    train = result.manifest["mixing"]["train"]
+    # Token balance with alpha 0.5, downsampling: the smaller language is kept whole and the
+    # larger one is cut to q_0 / q_1 times its tokens (within one sentence).
+    q = smoothed_probabilities(train["available"], 0.5)
+    small = int(np.argmin(np.asarray(train["available"]) / q))
+    assert train["tokens"][small] == train["available"][small]
+    other = 1 - small
+    assert abs(train["tokens"][other] - q[other] / q[small] * train["available"][small]) < 60
+    langs = np.load(tmp_path / "out" / f"{result.manifest['conditions']['shared']['shards']['train'][0]}.langs.npy")
+    n = 2 * min(train["sentences"])
+    assert langs[:n].tolist() == [0, 1] * (n // 2)          # alternating order

@@ -266,10 +266,13 @@ class HygieneFilter:
             self.counts[lang][name] += n
 
     def filter_scan(self, result: ScanResult, lang: int) -> ScanResult:
-        """The scan result without the sentences hygiene drops (counts in its counters)."""
+        """The scan result without the sentences hygiene drops (counts in its counters).
+        Needs the result's text (``ScanTask.keep_text``) whenever a step is active."""
         if not self.active or not len(result.lengths):
             return result
         lines = result.text.split("\n")
+        if len(lines) != len(result.lengths):
+            raise RuntimeError("hygiene needs the sentences' text: scan with ScanTask.keep_text = True")
         counters = Counter(result.counters)
         keep = self.keep_mask(lang, result.file_index, lines, result.line_numbers, result.splits, counters)
         if keep.all():

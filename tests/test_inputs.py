@@ -255,3 +255,37 @@ exclude_from = "all"
     recipe = load_recipe(write_recipe(tmp_path, "en.tsv", extra))
     manifest = build(recipe, tmp_path / "out").manifest
     assert recipe_from_manifest(manifest, tmp_path / "out") == recipe
+
+
+def test_parquet_column_that_is_not_text_is_an_error_naming_the_file(tmp_path: Path) -> None:
+    pq.write_table(pa.table({"text": [1, 2]}), tmp_path / "en.parquet")
+    with pytest.raises(InputError, match=r"en.parquet: column 'text' has type int64, not a string column"):
+        english(write_recipe(tmp_path, "en.parquet"))
+
+
+def test_a_file_that_is_not_parquet_is_an_error_naming_the_file(tmp_path: Path) -> None:
+    (tmp_path / "en.parquet").write_bytes(b"not parquet at all\n")
+    with pytest.raises(InputError, match=r"en.parquet: not a readable Parquet file"):
+        english(write_recipe(tmp_path, "en.parquet"))
+
+
+def test_invalid_utf8_in_a_csv_field_follows_the_recipe_policy(tmp_path: Path) -> None:
+    (tmp_path / "en.csv").write_bytes(b"id,text\n1,The pier\n2,bad \xff byte\n")
+    with pytest.raises(InputError, match=r"en.csv:3: invalid UTF-8"):
+        english(write_recipe(tmp_path, "en.csv"))
+    recipe = write_recipe(tmp_path, "en.csv").read_text() + '[clean]\ninvalid_utf8 = "replace"\n'
+    (tmp_path / "recipe.toml").write_text(recipe, encoding="utf-8")
+    assert english(tmp_path / "recipe.toml") == [("The pier", 2), ("bad \ufffd byte", 3)]
+
+
+def test_bad_row_input_on_the_command_line_is_one_line_and_exit_2(tmp_path: Path) -> None:
+    from click.testing import CliRunner
+
+    from bivocab.cli import main
+
+    (tmp_path / "en.jsonl").write_text('{"text": "ok"}\n[1, 2]\n', encoding="utf-8")
+    recipe = write_recipe(tmp_path, "en.jsonl")
+    result = CliRunner().invoke(main, ["build", str(recipe), "--out", str(tmp_path / "out")])
+    assert result.exit_code == 2
+    assert result.output.strip().splitlines() == ["error: en.jsonl:2: expected a JSON object per line, got list"]
+    assert not (tmp_path / "out" / "build.json").exists()

@@ -271,7 +271,7 @@ class HygieneFilter:
         if not self.active or not len(result.lengths):
             return result
         lines = result.text.split("\n")
-        if len(lines) != len(result.lengths):
+        if not result.text or len(lines) != len(result.lengths):   # kept sentences are never empty
             raise RuntimeError("hygiene needs the sentences' text: scan with ScanTask.keep_text = True")
         counters = Counter(result.counters)
         keep = self.keep_mask(lang, result.file_index, lines, result.line_numbers, result.splits, counters)

@@ -294,6 +294,8 @@ def load_recipe(path: str | os.PathLike[str], resolve_inputs: bool = True) -> Re
     mix = MixSpec(**r.table("mix", {"order": MIX_ORDERS, "within_language": ("shuffled", "input"),
                                     "balance": BALANCE_UNITS, "alpha": float, "resample": ("down", "up"),
                                     "balance_splits": "strings"}))
+    if mix.order == "shuffled" and mix.within_language != "shuffled":
+        raise r.fail("mix", 0, "within_language", 'applies to order = "alternating" or "blocked" only')
     if not 0.0 <= mix.alpha <= 1.0:
         raise r.fail("mix", 0, "alpha", f"must be between 0 and 1, got {mix.alpha}")
     for split in mix.balance_splits:

@@ -18,6 +18,7 @@ from typing import Any, Iterator
 
 import numpy as np
 import pyarrow as pa
+import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from .errors import BivocabError
@@ -251,9 +252,8 @@ def read_parquet_shard(path: Path, tags: tuple[str, ...]) -> Shard:
     ids = table.column("ids").combine_chunks()
     offsets = ids.offsets.to_numpy().astype(np.int64)
     tokens = ids.values.to_numpy()[offsets[0]:offsets[-1]]
-    language = table.column("language").to_pylist()
-    langs = np.array([tags.index(tag) for tag in language], dtype=np.uint8)
-    return Shard(tokens, offsets - offsets[0], langs)
+    langs = pc.index_in(table.column("language"), value_set=pa.array(list(tags))).to_numpy(zero_copy_only=False)
+    return Shard(tokens, offsets - offsets[0], langs.astype(np.uint8))
 
 
 def open_shards(out: str | Path, condition: str, split: str) -> ShardReader:

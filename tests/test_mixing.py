@@ -159,3 +159,9 @@ def test_the_clean_balanced_example_recipe_builds_on_the_sample_corpus(tmp_path:
     langs = np.load(tmp_path / "out" / f"{result.manifest['conditions']['shared']['shards']['train'][0]}.langs.npy")
     n = 2 * min(train["sentences"])
     assert langs[:n].tolist() == [0, 1] * (n // 2)          # alternating order
+
+
+def test_input_order_within_languages_needs_an_unshuffled_order(tmp_path: Path) -> None:
+    recipe = write_corpus(tmp_path, ["a b"], ["c d"], '[mix]\nwithin_language = "input"\n')
+    with pytest.raises(RecipeError, match=r"\[mix\] within_language: applies to order"):
+        load_recipe(recipe)

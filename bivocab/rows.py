@@ -60,15 +60,6 @@ class _BlockBuilder:
                      line_numbers=tuple(numbers), source_lines=rows, counters=counters)
 
 
-def _check_unchanged(source: InputFile, before: os.stat_result) -> None:
-    try:
-        after = os.stat(source.path)
-    except OSError:
-        after = None
-    if after is None or (after.st_size, after.st_mtime_ns) != (before.st_size, before.st_mtime_ns):
-        raise InputError(f"{source.display}: input file changed while it was being read; rebuild when it is stable")
-
-
 def read_row_blocks(source: InputFile, file_index: int, fmt: str) -> Iterator[Block]:
     """Blocks of the text field of every row of a JSON Lines, CSV, TSV, Parquet or datasets input."""
     readers = {"jsonl": _jsonl_rows, "csv": _csv_rows, "tsv": _tsv_rows, "parquet": _parquet_rows,
@@ -87,7 +78,7 @@ def read_row_blocks(source: InputFile, file_index: int, fmt: str) -> Iterator[Bl
     block = builder.take()
     if block is not None:
         yield block
-    _check_unchanged(source, before)
+    sources.check_unchanged(source, before)
 
 
 def _field_bytes(source: InputFile, where: str, value: Any, builder: _BlockBuilder, number: int) -> None:
@@ -258,7 +249,7 @@ def _load_dataset(source: InputFile) -> Any:
                                      f"set dataset_split = \"...\" for this language")
                 loaded = loaded[wanted]
             return loaded
-        suffixes = [s.lower() for s in source.path.suffixes if s.lower() not in (".gz", ".bz2", ".xz", ".zst")]
+        suffixes = [s.lower() for s in source.path.suffixes if s.lower() not in sources.COMPRESSION_SUFFIXES]
         builder = _DATASETS_BUILDERS.get(suffixes[-1] if suffixes else "")
         if builder is None:
             raise InputError(f"{source.display}: datasets cannot read this file type "
@@ -274,7 +265,7 @@ def _load_dataset(source: InputFile) -> Any:
 def _datasets_rows(source: InputFile, builder: _BlockBuilder) -> Iterable[int]:
     dataset = _load_dataset(source)
     key = source.read.field
-    names = list(dataset.column_names or []) if getattr(dataset, "column_names", None) else None
+    names = dataset.column_names   # None for a streamed file whose columns are not known yet
     if names is not None and key not in names:
         raise InputError(f"{source.display}: no column '{key}' (columns: {', '.join(names[:12])}); "
                          f"set field = \"...\" for this language")

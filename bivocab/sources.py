@@ -201,6 +201,12 @@ def read_text_blocks(source: InputFile, file_index: int, block_bytes: int | None
             line += count
             if at_end:
                 break
+    check_unchanged(source, before)
+
+
+def check_unchanged(source: InputFile, before: os.stat_result) -> None:
+    """Fail if the input's size or modification time differs from ``before`` (taken when
+    reading started), so two versions of a file are never mixed silently."""
     try:
         after = os.stat(source.path)
     except OSError:

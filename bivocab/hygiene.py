@@ -156,7 +156,7 @@ def _prepass_file(task: _PrepassTask) -> tuple[int, np.ndarray, np.ndarray, list
     """Distinct sentence hashes of one input and its training-sample candidates (the
     sentences with the smallest sample hashes)."""
     recipe = task.recipe
-    parts, lines_all = [], []
+    parts = []
     sample_hashes, sample_texts = np.zeros(0, np.uint64), []
     for block in read_blocks(task.source, task.index):
         lines = clean_block(block, recipe.clean, task.source.display).lines

@@ -14,8 +14,8 @@ import os
 from collections import Counter
 from typing import Any, Iterable, Iterator
 
-from .errors import InputError
 from . import sources
+from .errors import InputError
 from .sources import Block, InputFile, open_binary, read_text_blocks
 
 ROWS_PER_BLOCK = 16384

@@ -18,13 +18,14 @@ import numpy as np
 
 from . import __version__
 from .errors import BivocabError, OutputError
+from .hygiene import prepare_hygiene
 from .manifest import (LOCK, MANIFEST, WORK, atomic_open, atomic_write_text, build_lock,
                        canonical_json, environment, read_manifest, sha256_file)
 from .mix import SplitOrder, mix_split
 from .recipe import SPLITS, Recipe, load_recipe
 from .scan import ScanResult, ScanTask, TypeTable, ordered_map, ragged_gather, scan_block
 from .segment import token_class
-from .shards import PROVENANCE_DTYPE, shard_stem, write_npy
+from .shards import PROVENANCE_DTYPE, ShardWriter, shard_stem, write_npy
 from .sources import InputFile, file_sha256, read_blocks
 from .splits import split_thresholds
 from .vocab import Vocabulary, build_vocabulary, tokenizer_json, tsv_text, vocab_tsv
@@ -75,7 +76,7 @@ def _quiet(_: str) -> None:
 
 def input_files(recipe: Recipe) -> list[InputFile]:
     base = recipe.base_dir
-    return [InputFile(base / f, f, lang.tag) for lang in recipe.languages for f in lang.files]
+    return [InputFile(base / f, f, lang.tag, lang.read) for lang in recipe.languages for f in lang.files]
 
 
 def check_output_dir(out: Path, recipe: Recipe, force: bool) -> None:
@@ -199,8 +200,10 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
     writers = [_WorkArrays(work, tag) for tag in tags]
     lang_of_file = [tags.index(f.language) for f in files]
     per_file: list[Counter] = [Counter() for _ in files]
+    hygiene = prepare_hygiene(recipe, files, jobs)
     for result in ordered_map(scan_block, _scan_tasks(recipe, files), jobs):
         li = lang_of_file[result.file_index]
+        result = hygiene.filter_scan(result, li)
         scan = scans[li]
         per_file[result.file_index].update(result.counters)
         lut = scan.table.merge(result.local_types)
@@ -234,11 +237,15 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
     written: list[str] = []
     shard_paths: dict[str, dict[str, list[str]]] = {c.name: {} for c in recipe.conditions}
     stats = {c.name: {s: [0, 0, [0] * len(tags), [0] * len(tags)] for s in SPLITS} for c in recipe.conditions}
+    mixing: dict[str, dict] = {}
+    shard_writer = ShardWriter(out, recipe.shards, tags, [f.display for f in files])
     starts = [np.concatenate(([0], np.cumsum(a["lengths"])[:-1])).astype(np.int64) if len(a["lengths"])
               else np.zeros(0, np.int64) for a in arrays]
     for si, split in enumerate(SPLITS):
         rows = [np.flatnonzero(np.asarray(a["splits"]) == si) for a in arrays]
-        order = mix_split(si, rows, recipe.mix, recipe.seed)
+        order = mix_split(si, rows, recipe.mix, recipe.seed, [a["lengths"] for a in arrays])
+        if order.sampling is not None:
+            mixing[split] = order.sampling
         for cond in recipe.conditions:
             shard_paths[cond.name][split] = []
         for shard_index, members in enumerate(_shard_members(order, arrays, recipe.shards.max_tokens)):
@@ -259,8 +266,8 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
             write_npy(out / path, prov)
             written.append(path)
             for cond, vocab in zip(recipe.conditions, vocabs):
-                paths = _write_condition_shard(out, cond.name, stem, vocab, langs, gathered,
-                                               stats[cond.name][split])
+                paths = _write_condition_shard(shard_writer, cond.name, stem, vocab, langs, gathered,
+                                               stats[cond.name][split], prov)
                 written += paths
                 shard_paths[cond.name][split].append(f"{cond.name}/{stem}")
 
@@ -283,6 +290,8 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
             s: SplitSummary(v[0], v[1], tuple(v[2]), tuple(v[3])) for s, v in stats[cond.name].items()})
         for cond, vocab in zip(recipe.conditions, vocabs))
     manifest = _manifest(recipe, out, files, hashes, per_file, scans, vocabs, shard_paths, written, summaries)
+    manifest["mixing"] = mixing
+    manifest["hygiene"] = hygiene.report()
     atomic_write_text(out / MANIFEST, canonical_json(manifest))
     return BuildResult(out, manifest, summaries)
 
@@ -303,8 +312,9 @@ def _shard_members(order: SplitOrder, arrays: list[dict[str, np.ndarray]], max_t
     yield from np.split(np.arange(len(lengths)), cuts)
 
 
-def _write_condition_shard(out: Path, condition: str, stem: str, vocab: Vocabulary, langs: np.ndarray,
-                           gathered: list[tuple[np.ndarray, np.ndarray, np.ndarray]], stat: list) -> list[str]:
+def _write_condition_shard(writer: ShardWriter, condition: str, stem: str, vocab: Vocabulary, langs: np.ndarray,
+                           gathered: list[tuple[np.ndarray, np.ndarray, np.ndarray]], stat: list,
+                           provenance: np.ndarray) -> list[str]:
     eos = vocab.eos_ids is not None
     n = len(langs)
     sent_len = np.empty(n, dtype=np.int64)
@@ -323,12 +333,7 @@ def _write_condition_shard(out: Path, condition: str, stem: str, vocab: Vocabula
         stat[3][li] += len(ids)
     stat[0] += n
     stat[1] += int(sum(len(t) for _, _, t in gathered))
-    paths = []
-    for suffix, array in (("tokens", tokens), ("offsets", offsets), ("langs", langs.astype(np.uint8))):
-        path = f"{condition}/{stem}.{suffix}.npy"
-        write_npy(out / path, array)
-        paths.append(path)
-    return paths
+    return writer.write(f"{condition}/{stem}", tokens, offsets, langs.astype(np.uint8), provenance)
 
 
 def types_tsv(scan: LanguageScan) -> str:

@@ -22,6 +22,7 @@ import numpy as np
 
 from . import __version__
 from .errors import BivocabError, OutputError
+from .hygiene import prepare_hygiene
 from .manifest import (LOCK, MANIFEST, WORK, atomic_open, atomic_write_text, build_lock,
                        canonical_json, environment, read_manifest, sha256_file)
 from .mix import SplitOrder, mix_split
@@ -30,10 +31,10 @@ from .gather import ShardBuckets
 from .progress import BuildMeter
 from .scan import ScanResult, ScanTask, TypeTable, WorkerTypeMaps, ordered_map, ragged_gather, scan_block
 from .segment import token_class
-from .shards import PROVENANCE_DTYPE, shard_stem, write_npy
+from .shards import PROVENANCE_DTYPE, ShardWriter, shard_stem, write_npy
 from .sources import InputFile, file_sha256, read_blocks
 from .splits import split_thresholds
-from .vocab import Vocabulary, build_vocabulary, tokenizer_json, vocab_tsv
+from .vocab import Vocabulary, build_vocabulary, tokenizer_json, tsv_text, vocab_tsv
 
 INCOMPLETE = ".bivocab-incomplete"
 
@@ -82,7 +83,7 @@ def _quiet(_: str) -> None:
 
 def input_files(recipe: Recipe) -> list[InputFile]:
     base = recipe.base_dir
-    return [InputFile(base / f, f, lang.tag) for lang in recipe.languages for f in lang.files]
+    return [InputFile(base / f, f, lang.tag, lang.read) for lang in recipe.languages for f in lang.files]
 
 
 def check_output_dir(out: Path, recipe: Recipe, force: bool) -> None:
@@ -192,7 +193,7 @@ class _WorkArrays:
         self.handles["lines"].write(result.line_numbers.astype(np.int64).tobytes())
         self.handles["inputs"].write(np.full(len(result.lengths), result.file_index, np.uint32).tobytes())
         if result.text:
-            self.text.write(result.text + b"\n")
+            self.text.write(result.text.encode("utf-8") + b"\n")
 
     def close(self) -> dict[str, np.ndarray]:
         for handle in [*self.handles.values(), self.text]:
@@ -243,12 +244,14 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
     per_file: list[Counter] = [Counter() for _ in files]
     plain = all(f.path.suffix.lower() not in (".gz", ".bz2", ".xz", ".lzma", ".zst") for f in files)
     total_bytes = sum(os.path.getsize(f.path) for f in files) if plain else None
+    hygiene = prepare_hygiene(recipe, files, jobs)
     with meter.stage("scan", total=total_bytes, unit="B") as advance:
         type_maps = WorkerTypeMaps()
         for result in ordered_map(scan_block, _scan_tasks(recipe, files), jobs,
                                   affinity=lambda task: tags.index(task.language)):
             started = time.perf_counter()
             li = lang_of_file[result.file_index]
+            result = hygiene.filter_scan(result, li)
             scan = scans[li]
             per_file[result.file_index].update(result.counters)
             global_tokens = type_maps.global_ids(result, scan.table)
@@ -276,11 +279,15 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
     written: list[str] = []
     shard_paths: dict[str, dict[str, list[str]]] = {c.name: {} for c in recipe.conditions}
     stats = {c.name: {s: [0, 0, [0] * len(tags), [0] * len(tags)] for s in SPLITS} for c in recipe.conditions}
+    mixing: dict[str, dict] = {}
+    shard_writer = ShardWriter(out, recipe.shards, tags, [f.display for f in files])
     starts = [np.concatenate(([0], np.cumsum(a["lengths"])[:-1])).astype(np.int64) if len(a["lengths"])
               else np.zeros(0, np.int64) for a in arrays]
     for si, split in enumerate(SPLITS):
         rows = [np.flatnonzero(np.asarray(a["splits"]) == si) for a in arrays]
-        order = mix_split(si, rows, recipe.mix, recipe.seed)
+        order = mix_split(si, rows, recipe.mix, recipe.seed, [a["lengths"] for a in arrays])
+        if order.sampling is not None:
+            mixing[split] = order.sampling
         for cond in recipe.conditions:
             shard_paths[cond.name][split] = []
         shard_list = list(_shard_members(order, arrays, recipe.shards.max_tokens))
@@ -305,8 +312,8 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
             write_npy(out / path, prov)
             written.append(path)
             for cond, vocab in zip(recipe.conditions, vocabs):
-                paths = _write_condition_shard(out, cond.name, stem, vocab, langs, gathered,
-                                               stats[cond.name][split])
+                paths = _write_condition_shard(shard_writer, cond.name, stem, vocab, langs, gathered,
+                                               stats[cond.name][split], prov)
                 written += paths
                 shard_paths[cond.name][split].append(f"{cond.name}/{stem}")
             advance(len(members), words=sum(len(t) for _, _, t in gathered))
@@ -333,6 +340,8 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
         for cond, vocab in zip(recipe.conditions, vocabs))
     meter.begin("manifest", total=None, unit="")
     manifest = _manifest(recipe, out, files, hashes, per_file, scans, vocabs, shard_paths, written, summaries)
+    manifest["mixing"] = mixing
+    manifest["hygiene"] = hygiene.report()
     atomic_write_text(out / MANIFEST, canonical_json(manifest))
     meter.end()
     return BuildResult(out, manifest, summaries)
@@ -368,8 +377,9 @@ def _shard_members(order: SplitOrder, arrays: list[dict[str, np.ndarray]], max_t
     yield from np.split(np.arange(len(lengths)), cuts)
 
 
-def _write_condition_shard(out: Path, condition: str, stem: str, vocab: Vocabulary, langs: np.ndarray,
-                           gathered: list[tuple[np.ndarray, np.ndarray, np.ndarray]], stat: list) -> list[str]:
+def _write_condition_shard(writer: ShardWriter, condition: str, stem: str, vocab: Vocabulary, langs: np.ndarray,
+                           gathered: list[tuple[np.ndarray, np.ndarray, np.ndarray]], stat: list,
+                           provenance: np.ndarray) -> list[str]:
     eos = vocab.eos_ids is not None
     n = len(langs)
     sent_len = np.empty(n, dtype=np.int64)
@@ -388,12 +398,7 @@ def _write_condition_shard(out: Path, condition: str, stem: str, vocab: Vocabula
         stat[3][li] += len(ids)
     stat[0] += n
     stat[1] += int(sum(len(t) for _, _, t in gathered))
-    paths = []
-    for suffix, array in (("tokens", tokens), ("offsets", offsets), ("langs", langs.astype(np.uint8))):
-        path = f"{condition}/{stem}.{suffix}.npy"
-        write_npy(out / path, array)
-        paths.append(path)
-    return paths
+    return writer.write(f"{condition}/{stem}", tokens, offsets, langs.astype(np.uint8), provenance)
 
 
 def types_tsv(scan: LanguageScan) -> str:
@@ -401,11 +406,10 @@ def types_tsv(scan: LanguageScan) -> str:
     tie rule (train count descending, then code points)."""
     counts = scan.split_counts
     order = sorted(range(len(scan.table)), key=lambda i: (-int(counts[0, i]), scan.table.surfaces[i]))
-    lines = ["surface\tclass\tcount_train\tcount_valid\tcount_test"]
-    for i in order:
-        s = scan.table.surfaces[i]
-        lines.append(f"{s}\t{token_class(s)}\t{counts[0, i]}\t{counts[1, i]}\t{counts[2, i]}")
-    return "\n".join(lines) + "\n"
+    surfaces = scan.table.surfaces
+    rows = [[surfaces[i], token_class(surfaces[i]), str(counts[0, i]), str(counts[1, i]), str(counts[2, i])]
+            for i in order]
+    return tsv_text(["surface", "class", "count_train", "count_valid", "count_test"], rows)
 
 
 def _manifest(recipe: Recipe, out: Path, files: list[InputFile], hashes: dict[str, str],

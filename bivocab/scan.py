@@ -1,11 +1,11 @@
 """First pass over the corpus: clean, segment and assign splits, block by block.
 
 Each block is turned into compact arrays (token type ids, sentence lengths, splits, line
-numbers).  Python-level work runs once per distinct whitespace-separated chunk of the corpus
-per worker, not once per token or sentence: every worker process keeps, per language, a
-:class:`ChunkTable` of the chunks it has seen (their tokens as worker-local type ids and their
-split hashes), so a block costs a dictionary encode (pyarrow), one dictionary look-up per
-distinct chunk of the block, and numpy gathers.
+numbers).  Python-level segmentation runs once per distinct whitespace-separated chunk of the
+corpus per worker, not once per token: every worker process keeps, per language, a
+:class:`ChunkTable` of the chunks it has seen (their tokens as worker-local type ids), so a
+block costs a dictionary encode (pyarrow), one dictionary look-up per distinct chunk of the
+block, numpy gathers, and one keyed hash per sentence for its split.
 
 Determinism: a result carries the token types its worker had not reported before, in the
 order the worker first met them.  The parent merges results in block order, so every type is
@@ -32,7 +32,7 @@ from .errors import BivocabError
 from .recipe import CleanSpec
 from .segment import segment
 from .sources import Block
-from .splits import chunk_hashes, line_hashes, splits_of_hashes
+from .splits import assign_splits
 
 class WorkerError(BivocabError):
     """A worker process died (killed, out of memory) instead of returning a result."""
@@ -77,7 +77,7 @@ class ScanResult:
     lengths: np.ndarray         # int64 tokens per kept sentence
     splits: np.ndarray          # uint8 split index per kept sentence
     line_numbers: np.ndarray    # int64 1-based line of each kept sentence
-    text: bytes                 # kept normalised sentences, UTF-8, LF-joined (b"" unless keep_text)
+    text: str                   # kept normalised sentences, LF-joined ("" unless keep_text)
     counters: Counter
     seconds: dict[str, float]   # worker time per step: clean, segment, splits
     bytes_read: int             # size of the block's raw data
@@ -101,11 +101,10 @@ class _Growing:
 
 
 class ChunkTable:
-    """One worker's memory of one language: distinct chunks -> tokens (worker type ids) and
-    keyed chunk hashes; and the worker's type table (surface -> worker type id)."""
+    """One worker's memory of one language: distinct chunks -> tokens (worker type ids), and
+    the worker's type table (surface -> worker type id)."""
 
-    def __init__(self, seed: int) -> None:
-        self.seed = seed
+    def __init__(self) -> None:
         self.types: dict[str, int] = {}
         self.surfaces: list[str] = []
         self.reported = 0
@@ -115,7 +114,6 @@ class ChunkTable:
         self.chunks: dict[str, int] = {}
         self.starts = _Growing(np.int64)
         self.lengths = _Growing(np.int64)
-        self.hashes = _Growing(np.uint64)
         self.flat = _Growing(np.uint32)
 
     def add(self, chunks: list[str], kinds: list[int]) -> list[int]:
@@ -143,7 +141,6 @@ class ChunkTable:
             position += len(tokens)
         self.starts.extend(starts)
         self.lengths.extend(lengths)
-        self.hashes.extend(chunk_hashes([c[:-1] for c in chunks], self.seed))
         self.flat.extend(flat)
         return ids
 
@@ -165,7 +162,7 @@ def _table(task: ScanTask) -> ChunkTable:
         _session = task.session
     table = _tables.get(task.language)
     if table is None:
-        table = _tables[task.language] = ChunkTable(task.seed)
+        table = _tables[task.language] = ChunkTable()
     return table
 
 
@@ -214,10 +211,10 @@ def scan_block(task: ScanTask) -> ScanResult:
     if not lines:
         empty = np.zeros(0, dtype=np.int64)
         return ScanResult(task.block.file_index, task.language, os.getpid(), table.unreported(),
-                          np.zeros(0, np.uint32), empty, np.zeros(0, np.uint8), empty, b"", counters,
+                          np.zeros(0, np.uint32), empty, np.zeros(0, np.uint8), empty, "", counters,
                           {"clean": cleaned_at - started}, len(task.block.data))
-    data = "\n".join(lines).encode("utf-8")
-    chunks, chunks_per_line = _chunk_array(data)
+    text = "\n".join(lines)
+    chunks, chunks_per_line = _chunk_array(text.encode("utf-8"))
     encoded = pc.dictionary_encode(chunks)
     distinct = encoded.dictionary.to_pylist()
     known = table.chunks.get
@@ -242,7 +239,7 @@ def scan_block(task: ScanTask) -> ScanResult:
     lengths = np.add.reduceat(occurrence_lengths, line_starts)
     numbers = np.asarray(cleaned.line_numbers, dtype=np.int64)
     segmented_at = time.perf_counter()
-    splits = splits_of_hashes(line_hashes(table.hashes.data[occurrence], chunks_per_line), task.thresholds)
+    splits = assign_splits(lines, task.seed, task.thresholds)
 
     spec = task.clean
     keep = lengths >= spec.min_tokens
@@ -255,12 +252,12 @@ def scan_block(task: ScanTask) -> ScanResult:
         tokens = tokens[np.repeat(keep, lengths)]
         lengths, numbers, splits = lengths[keep], numbers[keep], splits[keep]
         if task.keep_text:
-            data = "\n".join(line for line, k in zip(lines, keep.tolist()) if k).encode("utf-8")
+            text = "\n".join(line for line, k in zip(lines, keep.tolist()) if k)
     counters["sentences_kept"] += len(lengths)
     counters["tokens_kept"] += int(lengths.sum())
     done = time.perf_counter()
     return ScanResult(task.block.file_index, task.language, os.getpid(), table.unreported(), tokens,
-                      lengths.astype(np.int64), splits, numbers, data if task.keep_text else b"", counters,
+                      lengths.astype(np.int64), splits, numbers, text if task.keep_text else "", counters,
                       {"clean": cleaned_at - started, "segment": segmented_at - cleaned_at,
                        "splits": done - segmented_at}, len(task.block.data))
 

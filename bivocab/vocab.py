@@ -9,6 +9,8 @@ ids, so encoding a language under any condition is ``lut[type_ids]``.
 
 from __future__ import annotations
 
+import csv
+import io
 import json
 from dataclasses import dataclass
 
@@ -163,11 +165,19 @@ def build_vocabulary(condition: ConditionSpec, tags: tuple[str, ...], surfaces: 
 def vocab_tsv(vocab: Vocabulary) -> str:
     """The vocab.tsv contract: ``id token surface lang class count count_<tag>...``."""
     header = ["id", "token", "surface", "lang", "class", "count"] + [f"count_{t}" for t in vocab.tags]
-    rows = ["\t".join(header)]
-    for e in vocab.entries:
-        rows.append("\t".join([str(e.id), e.token, e.surface, e.lang, e.cls, str(e.count),
-                               *map(str, e.counts)]))
-    return "\n".join(rows) + "\n"
+    rows = [[str(e.id), e.token, e.surface, e.lang, e.cls, str(e.count), *map(str, e.counts)]
+            for e in vocab.entries]
+    return tsv_text(header, rows)
+
+
+def tsv_text(header: list[str], rows: list[list[str]]) -> str:
+    """Tab-separated text with CSV quoting: a field holding a double quote is quoted and the quote
+    doubled, so ``pandas.read_csv(path, sep="\\t", keep_default_na=False)`` reads every token back."""
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, delimiter="\t", quoting=csv.QUOTE_MINIMAL, lineterminator="\n")
+    writer.writerow(header)
+    writer.writerows(rows)
+    return buffer.getvalue()
 
 
 def tokenizer_json(vocab: Vocabulary, lang_index: int, clean: CleanSpec) -> str:

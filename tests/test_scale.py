@@ -1,6 +1,6 @@
 """Pass 1 at scale: the parallel scan gives the same build whatever --jobs, its fast paths agree
-with the segmentation regex (and with the tokenizers library), splits follow their single
-definition, and the build reports its stages."""
+with the segmentation regex (and with the tokenizers library), its splits are those of
+assign_splits, and the build reports its stages."""
 
 from __future__ import annotations
 
@@ -26,7 +26,7 @@ from bivocab.recipe import CleanSpec, SplitSpec
 from bivocab.scan import ScanTask, WorkerError, ordered_map, scan_block
 from bivocab.segment import segment
 from bivocab.sources import Block, read_blocks
-from bivocab.splits import assign_splits, chunk_hashes, line_hashes, split_thresholds
+from bivocab.splits import assign_splits, split_thresholds
 
 build_module = importlib.import_module("bivocab.build")  # the package exports a function of that name
 
@@ -167,26 +167,22 @@ def test_split_of_a_sentence_depends_only_on_its_text_and_the_seed() -> None:
     assert assign_splits(texts, 5, th).tolist() != assign_splits(texts, 4, th).tolist()
 
 
+def test_split_is_the_keyed_blake2b_of_the_text_against_the_thresholds() -> None:
+    # Reference: BLAKE2b (RFC 7693) as implemented by Python's hashlib, keyed with the seed.
+    th = split_thresholds(SplitSpec(0.8, 0.1, 0.1))
+    texts = ["Die Fähre fährt.", "The ferry is late.", "Gulls!"] + [f"log {i}" for i in range(300)]
+    key = (12).to_bytes(16, "little", signed=True)
+    hashes = [int.from_bytes(hashlib.blake2b(t.encode(), digest_size=8, key=key).digest(), "little") for t in texts]
+    expected = [0 if h < th[0] else 1 if h < th[1] else 2 for h in hashes]
+    assert assign_splits(texts, 12, th).tolist() == expected
+
+
 def test_split_fractions_follow_the_recipe() -> None:
     texts = [f"line {i} of the harbour log" for i in range(30_000)]
     splits = assign_splits(texts, 7, split_thresholds(SplitSpec(0.8, 0.1, 0.1)))
     shares = np.bincount(splits, minlength=3) / len(texts)
     # Binomial standard error at n = 30,000 is about 0.0023 for p = 0.8 (sqrt(p(1-p)/n)).
     assert np.allclose(shares, [0.8, 0.1, 0.1], atol=0.012)
-
-
-def test_line_hash_depends_on_chunk_order() -> None:
-    hashes = np.array(chunk_hashes(["ebb", "tide"], 1), dtype=np.uint64)
-    forward = line_hashes(hashes, np.array([2]))
-    backward = line_hashes(hashes[::-1], np.array([2]))
-    assert forward[0] != backward[0]
-
-
-def test_chunk_hash_is_keyed_blake2b_of_the_utf8_bytes() -> None:
-    # Reference: BLAKE2b (RFC 7693) as implemented by Python's hashlib, keyed with the seed.
-    expected = int.from_bytes(hashlib.blake2b("Fähre".encode(), digest_size=8,
-                                              key=(12).to_bytes(16, "little", signed=True)).digest(), "little")
-    assert chunk_hashes(["Fähre"], 12) == [expected]
 
 
 def test_ordered_map_returns_results_in_input_order_with_affinity() -> None:

@@ -32,6 +32,14 @@ _ODD_SPACE_OR_CONTROL_RE = re.compile(
     "\t\x0b\x0c\x1c-\x1f\x85\xa0\u1680\u2000-\u200a\u2028\u2029\u202f\u205f\u3000]")
 
 
+def _only_printable(text: str) -> bool:
+    """True when the LF-separated text holds no control character and no separator other than
+    the ASCII space (``str.isprintable``: categories C* and Z* except U+0020 are not printable),
+    so that none of the substitutions above can apply.  Several times cheaper than a regex
+    search; False (e.g. for a soft hyphen, category Cf) only means "look closer"."""
+    return text.replace("\n", " ").isprintable()
+
+
 @dataclass(frozen=True)
 class CleanLines:
     """The kept lines of a block, with their 1-based line numbers in the input file."""
@@ -61,7 +69,7 @@ def normalise_lines(text: str, spec: CleanSpec) -> str:
     Working on a whole block is exact: LF never composes in NFC/NFKC, and the other steps
     never cross a line break.
     """
-    if _ODD_SPACE_OR_CONTROL_RE.search(text):
+    if not _only_printable(text) and _ODD_SPACE_OR_CONTROL_RE.search(text):
         text = _CONTROL_RE.sub(" ", text)
         text = _SPACE_RE.sub(" ", text)
     if spec.normal_form != "none":
@@ -129,7 +137,7 @@ def clean_block(block: Block, spec: CleanSpec, display: str) -> CleanLines:
     raw_text = "\n".join(raw for _, raw in present)
     if "\x00" in raw_text:
         counters["nul_characters"] += raw_text.count("\x00")
-    controls = len(_CONTROL_RE.findall(raw_text))
+    controls = 0 if _only_printable(raw_text) else len(_CONTROL_RE.findall(raw_text))
     if controls:
         counters["control_characters_replaced"] += controls
     cleaned = normalise_lines(raw_text, spec).split("\n")

@@ -254,3 +254,16 @@ def test_build_with_empty_valid_and_test_splits_writes_no_shards_for_them(tmp_pa
     result = build(recipe, tmp_path / "out")
     shards = result.manifest["conditions"]["shared"]["shards"]
     assert shards["valid"] == [] and shards["test"] == [] and shards["train"]
+
+
+def test_printable_shortcut_never_hides_a_character_that_cleaning_replaces() -> None:
+    # Reference: the Unicode General_Category of every code point (Python's unicodedata): the
+    # shortcut relies on C* and Z* (except U+0020) being exactly what str.isprintable rejects.
+    from bivocab.clean import _ODD_SPACE_OR_CONTROL_RE, _only_printable
+
+    missed = [hex(c) for c in range(0x110000)
+              if c != 0x0A and not 0xD800 <= c < 0xE000
+              and _ODD_SPACE_OR_CONTROL_RE.match(chr(c)) and _only_printable(chr(c))]
+    assert missed == []
+    assert not _only_printable("a\u00a0b") and _only_printable("Fähre\nnach Kellhaven")
+    assert unicodedata.category("\u00a0") == "Zs"

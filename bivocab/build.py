@@ -29,7 +29,8 @@ from .mix import SplitOrder, mix_split
 from .recipe import SPLITS, CleanSpec, ConditionSpec, Recipe, load_recipe
 from .gather import ShardBuckets
 from .progress import BuildMeter
-from .scan import ScanResult, ScanTask, TypeTable, WorkerTypeMaps, ordered_map, ragged_gather, scan_block
+from .scan import (ScanResult, ScanTask, TypeTable, WorkerTypeMaps, ordered_map, ragged_gather, release_tables,
+                   scan_block)
 from .segment import token_class
 from .shards import PROVENANCE_DTYPE, ShardWriter, shard_stem, write_npy
 from .sources import InputFile, file_sha256, read_blocks
@@ -154,10 +155,11 @@ def _remove_stale(out: Path, previous: dict[str, Any] | None, manifest: dict[str
                 (out / path).unlink()
 
 
-def _scan_tasks(recipe: Recipe, files: list[InputFile]) -> Iterator[ScanTask]:
+def _scan_tasks(recipe: Recipe, files: list[InputFile], keep_text: bool) -> Iterator[ScanTask]:
     """Blocks of every input, the languages' streams interleaved block by block so that each
     worker can keep to one language (results do not depend on the interleaving: each language
-    is merged in its own input order)."""
+    is merged in its own input order).  ``keep_text``: results carry the sentences' text (costly
+    to send back from the workers; only hygiene needs it)."""
     thresholds = split_thresholds(recipe.splits)
     session = uuid.uuid4().hex
 
@@ -165,7 +167,8 @@ def _scan_tasks(recipe: Recipe, files: list[InputFile]) -> Iterator[ScanTask]:
         for index, source in enumerate(files):
             if source.language == tag:
                 for block in read_blocks(source, index):
-                    yield ScanTask(block, source.display, tag, recipe.clean, recipe.seed, thresholds, session)
+                    yield ScanTask(block, source.display, tag, recipe.clean, recipe.seed, thresholds, session,
+                                   keep_text)
 
     streams = [language_stream(tag) for tag in recipe.tags]
     while streams:
@@ -248,7 +251,7 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
     hygiene = prepare_hygiene(recipe, files, jobs)
     with meter.stage("scan", total=total_bytes, unit="B") as advance:
         type_maps = WorkerTypeMaps()
-        for result in ordered_map(scan_block, _scan_tasks(recipe, files), jobs,
+        for result in ordered_map(scan_block, _scan_tasks(recipe, files, hygiene.active), jobs,
                                   affinity=lambda task: tags.index(task.language)):
             started = time.perf_counter()
             li = lang_of_file[result.file_index]
@@ -262,6 +265,7 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
                 meter.detail(f"workers: {step}", seconds)
             meter.detail("merge, count, spill", time.perf_counter() - started)
             advance(result.bytes_read, words=len(global_tokens))
+    release_tables()
     arrays = [w.close() for w in writers]
     for scan in scans:
         scan.split_counts = scan.split_counts[:, :len(scan.table)]

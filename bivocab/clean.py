@@ -63,13 +63,15 @@ def apply_normal_form(text: str, form: str) -> str:
     return unicodedata.normalize(form, text)
 
 
-def normalise_lines(text: str, spec: CleanSpec) -> str:
+def normalise_lines(text: str, spec: CleanSpec, printable: bool | None = None) -> str:
     """Clean LF-separated lines (steps 2-4 above) in one pass over the whole text.
 
     Working on a whole block is exact: LF never composes in NFC/NFKC, and the other steps
-    never cross a line break.
+    never cross a line break.  ``printable``: the caller already knows ``_only_printable(text)``.
     """
-    if not _only_printable(text) and _ODD_SPACE_OR_CONTROL_RE.search(text):
+    if printable is None:
+        printable = _only_printable(text)
+    if not printable and _ODD_SPACE_OR_CONTROL_RE.search(text):
         text = _CONTROL_RE.sub(" ", text)
         text = _SPACE_RE.sub(" ", text)
     if spec.normal_form != "none":
@@ -137,10 +139,16 @@ def clean_block(block: Block, spec: CleanSpec, display: str) -> CleanLines:
     raw_text = "\n".join(raw for _, raw in present)
     if "\x00" in raw_text:
         counters["nul_characters"] += raw_text.count("\x00")
-    controls = 0 if _only_printable(raw_text) else len(_CONTROL_RE.findall(raw_text))
+    printable = _only_printable(raw_text)
+    controls = 0 if printable else len(_CONTROL_RE.findall(raw_text))
     if controls:
         counters["control_characters_replaced"] += controls
-    cleaned = normalise_lines(raw_text, spec).split("\n")
+    normalised = normalise_lines(raw_text, spec, printable)
+    cleaned = normalised.split("\n")
+    if (normalised is raw_text and not spec.max_chars and len(present) == len(decoded)
+            and block.line_numbers is None and "" not in cleaned):
+        # Nothing changed, dropped or renumbered: the per-line checks below would keep every line.
+        return CleanLines(cleaned, list(range(block.first_line, block.first_line + len(cleaned))), counters)
     kept: list[str] = []
     numbers: list[int] = []
     changed = 0

@@ -8,8 +8,9 @@ block costs a dictionary encode (pyarrow), one dictionary look-up per distinct c
 block, numpy gathers, and one keyed hash per sentence for its split.
 
 Determinism: a result carries the token types its worker had not reported before, in the
-order the worker first met them.  The parent merges results in block order, so every type is
-numbered by its first occurrence in the corpus, whatever the number of jobs.
+order the worker first met them.  The parent merges each language's results in input order,
+so every type is numbered by its first occurrence in that language's inputs, whatever the
+number of jobs and whichever worker ran a block.
 """
 
 from __future__ import annotations
@@ -33,6 +34,7 @@ from .recipe import CleanSpec
 from .segment import segment
 from .sources import Block
 from .splits import assign_splits
+
 
 class WorkerError(BivocabError):
     """A worker process died (killed, out of memory) instead of returning a result."""
@@ -164,6 +166,13 @@ def _table(task: ScanTask) -> ChunkTable:
     if table is None:
         table = _tables[task.language] = ChunkTable()
     return table
+
+
+def release_tables() -> None:
+    """Drop this process's chunk tables (a build that scanned in-process calls it when done)."""
+    global _session
+    _tables.clear()
+    _session = ""
 
 
 def ragged_gather(starts: np.ndarray, lengths: np.ndarray) -> np.ndarray:

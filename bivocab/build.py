@@ -16,7 +16,7 @@ import uuid
 from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable, Iterator, TypeVar
+from typing import Any, Callable, Iterator
 
 import numpy as np
 
@@ -26,7 +26,7 @@ from .hygiene import prepare_hygiene
 from .manifest import (LOCK, MANIFEST, WORK, atomic_open, atomic_write_text, build_lock,
                        canonical_json, environment, read_manifest, sha256_file)
 from .mix import SplitOrder, mix_split
-from .recipe import SPLITS, CleanSpec, ConditionSpec, Recipe, load_recipe
+from .recipe import SPLITS, Recipe, load_recipe
 from .gather import ShardBuckets
 from .progress import BuildMeter
 from .scan import (ScanResult, ScanTask, TypeTable, WorkerTypeMaps, ordered_map, ragged_gather, release_tables,
@@ -38,7 +38,6 @@ from .splits import split_thresholds
 from .vocab import Vocabulary, build_vocabulary, tokenizer_json, tsv_text, vocab_tsv
 
 INCOMPLETE = ".bivocab-incomplete"
-_R = TypeVar("_R")
 
 
 @dataclass
@@ -210,12 +209,12 @@ class _WorkArrays:
         return arrays
 
 
-def _without_cyclic_gc(fn: Callable[..., _R]) -> Callable[..., _R]:
+def _without_cyclic_gc(fn: Callable[..., BuildResult]) -> Callable[..., BuildResult]:
     """Run ``fn`` with Python's cyclic garbage collector paused: a build allocates millions of
     small acyclic objects (type tables, vocabulary entries), and repeated full collections
     over them cost about as much as the work itself."""
     @functools.wraps(fn)
-    def paused(*args: Any, **kwargs: Any) -> _R:
+    def paused(*args: Any, **kwargs: Any) -> BuildResult:
         was_enabled = gc.isenabled()
         gc.disable()
         try:
@@ -275,14 +274,9 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
 
     surfaces = [scan.table.surfaces for scan in scans]
     vocabs = []
-    vocab_files: list[str] = []
     with meter.stage("vocabulary", total=len(recipe.conditions), unit="conditions") as advance:
-        # Conditions are independent: each worker builds one and writes its vocab files.
-        tasks = [_VocabularyTask(cond, tags, surfaces, [scan.split_counts[0] for scan in scans], out, recipe.clean)
-                 for cond in recipe.conditions]
-        for vocab, paths in ordered_map(_vocabulary_with_files, tasks, min(jobs, len(tasks))):
-            vocabs.append(vocab)
-            vocab_files += paths
+        for cond in recipe.conditions:
+            vocabs.append(build_vocabulary(cond, tags, surfaces, [scan.split_counts[0] for scan in scans]))
             advance(1)
 
     advance = meter.begin("shards", total=sum(s.sentences for s in scans), unit="sentences")
@@ -329,8 +323,16 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
             advance(len(members), words=sum(len(t) for _, _, t in gathered))
         buckets.remove()
 
-    meter.begin("types files", total=len(scans), unit="files")
-    written += vocab_files
+    advance = meter.begin("vocab files", total=len(recipe.conditions), unit="conditions")
+    for cond, vocab in zip(recipe.conditions, vocabs):
+        path = f"{cond.name}/vocab.tsv"
+        atomic_write_text(out / path, vocab_tsv(vocab))
+        written.append(path)
+        for li, tag in enumerate(tags):
+            path = f"{cond.name}/tokenizer.{tag}.json"
+            atomic_write_text(out / path, tokenizer_json(vocab, li, recipe.clean))
+            written.append(path)
+        advance(1)
     for scan in scans:
         path = f"types/{scan.tag}.tsv"
         atomic_write_text(out / path, types_tsv(scan))
@@ -347,29 +349,6 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
     atomic_write_text(out / MANIFEST, canonical_json(manifest))
     meter.end()
     return BuildResult(out, manifest, summaries)
-
-
-@dataclass(frozen=True)
-class _VocabularyTask:
-    condition: ConditionSpec
-    tags: tuple[str, ...]
-    surfaces: list[list[str]]
-    train_counts: list[np.ndarray]
-    out: Path
-    clean: CleanSpec
-
-
-@_without_cyclic_gc
-def _vocabulary_with_files(task: _VocabularyTask) -> tuple[Vocabulary, list[str]]:
-    """Build one condition's vocabulary and write its vocab.tsv and tokenizer files."""
-    cond = task.condition
-    vocab = build_vocabulary(cond, task.tags, task.surfaces, task.train_counts)
-    paths = [f"{cond.name}/vocab.tsv"]
-    atomic_write_text(task.out / paths[0], vocab_tsv(vocab))
-    for li, tag in enumerate(task.tags):
-        paths.append(f"{cond.name}/tokenizer.{tag}.json")
-        atomic_write_text(task.out / paths[-1], tokenizer_json(vocab, li, task.clean))
-    return vocab, paths
 
 
 def _count_by_split(scan: LanguageScan, global_tokens: np.ndarray, result: ScanResult) -> None:

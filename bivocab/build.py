@@ -38,6 +38,10 @@ from .splits import split_thresholds
 from .vocab import Vocabulary, build_vocabulary, tokenizer_json, tsv_text, vocab_tsv
 
 INCOMPLETE = ".bivocab-incomplete"
+# Bytes of text per scan block.  Larger blocks repeat more of their chunks, so a worker looks
+# up fewer distinct chunks per token (16 MiB: about a fifth faster than 4 MiB, at the price of
+# a few hundred MB of working memory per worker).
+SCAN_BLOCK_BYTES = 16 << 20
 
 
 @dataclass
@@ -165,7 +169,7 @@ def _scan_tasks(recipe: Recipe, files: list[InputFile], keep_text: bool) -> Iter
     def language_stream(tag: str) -> Iterator[ScanTask]:
         for index, source in enumerate(files):
             if source.language == tag:
-                for block in read_blocks(source, index):
+                for block in read_blocks(source, index, block_bytes=SCAN_BLOCK_BYTES):
                     yield ScanTask(block, source.display, tag, recipe.clean, recipe.seed, thresholds, session,
                                    keep_text)
 

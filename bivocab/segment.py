@@ -58,7 +58,7 @@ def segment(text: str) -> list[str]:
     return _TOKEN_RE.findall(text)
 
 
-@lru_cache(maxsize=1 << 16)
+@lru_cache(maxsize=1 << 18)
 def token_class(token: str) -> str:
     """Class of a token: ``word`` if it holds a letter, else ``number`` if it starts with a
     digit (Unicode N*), ``punct`` if it starts with punctuation (P*), otherwise ``symbol``

@@ -4,7 +4,6 @@ assign_splits, and the build reports its stages."""
 
 from __future__ import annotations
 
-import functools
 import hashlib
 import importlib
 import re
@@ -25,7 +24,7 @@ from bivocab.progress import BuildMeter
 from bivocab.recipe import CleanSpec, SplitSpec
 from bivocab.scan import ScanTask, WorkerError, ordered_map, scan_block
 from bivocab.segment import segment
-from bivocab.sources import Block, read_blocks
+from bivocab.sources import Block
 from bivocab.splits import assign_splits, split_thresholds
 
 build_module = importlib.import_module("bivocab.build")  # the package exports a function of that name
@@ -85,7 +84,7 @@ def _tree(out: Path) -> dict[str, bytes]:
 @pytest.fixture
 def small_blocks(monkeypatch: pytest.MonkeyPatch) -> None:
     """Blocks of 2 KiB, so that a small corpus spans many blocks and both workers get work."""
-    monkeypatch.setattr(build_module, "read_blocks", functools.partial(read_blocks, block_bytes=2048))
+    monkeypatch.setattr(build_module, "SCAN_BLOCK_BYTES", 2048)
 
 
 def test_build_is_byte_identical_whatever_the_number_of_jobs(tmp_path: Path, small_blocks: None) -> None:

@@ -26,55 +26,22 @@ from bivocab.scan import ScanTask, WorkerError, ordered_map, scan_block
 from bivocab.segment import segment
 from bivocab.sources import Block
 from bivocab.splits import assign_splits, split_thresholds
+from conftest import write_corpus, write_recipe
 
 build_module = importlib.import_module("bivocab.build")  # the package exports a function of that name
 
 EN = ["The ferry to Kellhaven leaves at 7.15, if the fog lifts.",
       "Gulls followed the trawler \"Marta\" (registered 1,204) into the harbour!",
-      "Don't tie up at pier 3; the crane's broken.",
-      "Tide tables: 4.20 m at noon — 0.80 m at dusk.",
-      "The harbour master's café opens at six."]
+      "Don't tie up at pier 3; the crane's broken."]
 DE = ["Die Fähre nach Kellhaven fährt um 7.15 Uhr, wenn sich der Nebel hebt.",
       "Möwen folgten dem Kutter „Marta“ (Nr. 1.204) in den Hafen!",
-      "Am Steg 3 nicht festmachen; der Kran ist kaputt.",
-      "Gezeiten: 4,20 m am Mittag – 0,80 m am Abend.",
       "Das Café des Hafenmeisters öffnet um sechs. Geht's?"]
 
 
-def _corpus(root: Path, lines_per_language: int = 1500) -> Path:
-    """A small two-language corpus (varied, with repeats) and its three-condition recipe."""
-    rng = np.random.default_rng(5)
-    for tag, base in (("en", EN), ("de", DE)):
-        words = " ".join(base).split()
-        lines = []
-        for i in range(lines_per_language):
-            picked = rng.choice(len(words), size=int(rng.integers(1, 14)))
-            lines.append(" ".join(words[j] for j in picked) + (f" {i}" if i % 7 == 0 else ""))
-        (root / tag).mkdir()
-        (root / tag / "a.txt").write_text("\n".join(lines[: lines_per_language // 2]) + "\n", encoding="utf-8")
-        (root / tag / "b.txt").write_text("\n".join(lines[lines_per_language // 2:]) + "\n", encoding="utf-8")
-    recipe = root / "recipe.toml"
-    recipe.write_text("""
-[build]
-name = "kellhaven-scale"
-seed = 11
-[languages.en]
-inputs = ["en/*.txt"]
-[languages.de]
-inputs = ["de/*.txt"]
-[shards]
-max_tokens = 2000
-[[condition]]
-name = "shared"
-policy = "shared"
-[[condition]]
-name = "word-tagged"
-policy = "word-tagged"
-[[condition]]
-name = "fully-tagged"
-policy = "fully-tagged"
-""", encoding="utf-8")
-    return recipe
+def _corpus(root: Path, sentences: int = 1500) -> Path:
+    """The shared generated corpus (tests/conftest.py) with shards of 2,000 tokens."""
+    write_corpus(root, sentences)
+    return write_recipe(root, "[shards]\nmax_tokens = 2000")
 
 
 def _tree(out: Path) -> dict[str, bytes]:
@@ -147,11 +114,11 @@ def test_scan_tokens_match_the_tokenizers_library_with_the_exported_tokenizer(tm
     # (Oniguruma regex engine), an implementation independent of the scan's fast paths.
     from tokenizers import Tokenizer
 
-    recipe = _corpus(tmp_path, lines_per_language=60)
+    recipe = _corpus(tmp_path, sentences=60)
     out = tmp_path / "out"
     build(recipe, out)
     tokenizer = Tokenizer.from_file(str(out / "shared" / "tokenizer.de.json"))
-    lines = (tmp_path / "de" / "a.txt").read_text(encoding="utf-8").splitlines()
+    lines = (tmp_path / "de" / "part.txt").read_text(encoding="utf-8").splitlines() + DE
     ours, _ = _scan_lines(lines)
     theirs = [[piece for piece, _ in tokenizer.pre_tokenizer.pre_tokenize_str(line)] for line in lines]
     assert ours == theirs
@@ -210,7 +177,7 @@ def test_normalise_lines_fast_path_equals_the_full_substitutions(text: str) -> N
 
 
 def test_profile_flag_prints_the_time_of_each_stage(tmp_path: Path) -> None:
-    recipe = _corpus(tmp_path, lines_per_language=40)
+    recipe = _corpus(tmp_path, sentences=40)
     result = CliRunner().invoke(main, ["build", str(recipe), "--out", str(tmp_path / "out"), "--quiet", "--profile"])
     assert result.exit_code == 0, result.output
     stages = [line.split()[0] for line in result.stderr.splitlines()[1:]]
@@ -219,7 +186,7 @@ def test_profile_flag_prints_the_time_of_each_stage(tmp_path: Path) -> None:
 
 
 def test_build_prints_no_progress_without_a_terminal(tmp_path: Path) -> None:
-    recipe = _corpus(tmp_path, lines_per_language=40)
+    recipe = _corpus(tmp_path, sentences=40)
     result = CliRunner().invoke(main, ["build", str(recipe), "--out", str(tmp_path / "out")])
     assert result.exit_code == 0, result.output
     assert result.stderr == ""
@@ -247,7 +214,7 @@ def test_build_is_unchanged_when_shard_buckets_are_copied_in_tiny_chunks(tmp_pat
 
 
 def test_build_with_empty_valid_and_test_splits_writes_no_shards_for_them(tmp_path: Path) -> None:
-    recipe = _corpus(tmp_path, lines_per_language=50)
+    recipe = _corpus(tmp_path, sentences=50)
     recipe.write_text(recipe.read_text(encoding="utf-8") + "\n[splits]\ntrain = 1.0\nvalid = 0.0\ntest = 0.0\n",
                       encoding="utf-8")
     result = build(recipe, tmp_path / "out")

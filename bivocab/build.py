@@ -27,6 +27,7 @@ from .segment import token_class
 from .shards import PROVENANCE_DTYPE, shard_stem, write_npy
 from .sources import InputFile, file_sha256, read_blocks
 from .splits import split_thresholds
+from .subword import SentenceText, SubwordCondition, build_subword_condition, model_path
 from .vocab import Vocabulary, build_vocabulary, tokenizer_json, tsv_text, vocab_tsv
 
 INCOMPLETE = ".bivocab-incomplete"
@@ -227,7 +228,14 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
 
     progress("vocabulary")
     surfaces = [scan.table.surfaces for scan in scans]
-    vocabs = [build_vocabulary(cond, tags, surfaces, [scan.split_counts[0] for scan in scans])
+    subwords: dict[str, SubwordCondition] = {}
+    if any(cond.units != "word" for cond in recipe.conditions):
+        progress("subword models")
+        texts = [SentenceText(work / f"{tag}.text", scan.sentences) for tag, scan in zip(tags, scans)]
+        subwords = {cond.name: build_subword_condition(cond, recipe, texts, [a["splits"] for a in arrays], work, jobs)
+                    for cond in recipe.conditions if cond.units != "word"}
+    vocabs = [subwords[cond.name].vocab if cond.name in subwords else
+              build_vocabulary(cond, tags, surfaces, [scan.split_counts[0] for scan in scans])
               for cond in recipe.conditions]
 
     progress("shards")
@@ -259,7 +267,10 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
             write_npy(out / path, prov)
             written.append(path)
             for cond, vocab in zip(recipe.conditions, vocabs):
-                paths = _write_condition_shard(out, cond.name, stem, vocab, langs, gathered,
+                sub = subwords.get(cond.name)
+                here = gathered if sub is None else [
+                    (mask, *sub.gather(li, rows_here[mask])) for li, (mask, _, _) in enumerate(gathered)]
+                paths = _write_condition_shard(out, cond.name, stem, vocab, langs, here,
                                                stats[cond.name][split])
                 written += paths
                 shard_paths[cond.name][split].append(f"{cond.name}/{stem}")
@@ -269,6 +280,13 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
         path = f"{cond.name}/vocab.tsv"
         atomic_write_text(out / path, vocab_tsv(vocab))
         written.append(path)
+        if cond.name in subwords:
+            for tag, model in zip(tags, subwords[cond.name].models):
+                path = model_path(cond.name, tag)
+                with atomic_open(out / path) as handle:
+                    handle.write(model)
+                written.append(path)
+            continue
         for li, tag in enumerate(tags):
             path = f"{cond.name}/tokenizer.{tag}.json"
             atomic_write_text(out / path, tokenizer_json(vocab, li, recipe.clean))
@@ -283,6 +301,9 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
             s: SplitSummary(v[0], v[1], tuple(v[2]), tuple(v[3])) for s, v in stats[cond.name].items()})
         for cond, vocab in zip(recipe.conditions, vocabs))
     manifest = _manifest(recipe, out, files, hashes, per_file, scans, vocabs, shard_paths, written, summaries)
+    for name, sub in subwords.items():
+        entry = manifest["conditions"][name]
+        entry.update(tokenizers={}, models={t: model_path(name, t) for t in tags}, subword=sub.record)
     atomic_write_text(out / MANIFEST, canonical_json(manifest))
     return BuildResult(out, manifest, summaries)
 
@@ -358,7 +379,7 @@ def _manifest(recipe: Recipe, out: Path, files: list[InputFile], hashes: dict[st
     conditions = {}
     for cond, vocab, summary in zip(recipe.conditions, vocabs, summaries):
         conditions[cond.name] = {
-            "policy": cond.policy, "classes": cond.classes, "vocab": f"{cond.name}/vocab.tsv",
+            "policy": cond.policy, "units": cond.units, "classes": cond.classes, "vocab": f"{cond.name}/vocab.tsv",
             "size": len(vocab), "specials": vocab.special_count,
             "tokenizers": {t: f"{cond.name}/tokenizer.{t}.json" for t in recipe.tags},
             "dtype": vocab.dtype.name, "shards": shard_paths[cond.name],

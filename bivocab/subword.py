@@ -402,3 +402,176 @@ def _check_unique(condition: str, entries: list[Entry]) -> None:
         if other is not e:
             raise BivocabError(f"condition '{condition}': exported token {e.token!r} of piece ({e.lang}, "
                                f"{e.surface!r}) collides with piece ({other.lang}, {other.surface!r})")
+
+
+# --- statistics (for the audit) ------------------------------------------------------------------
+
+def word_spans(text: str) -> list[tuple[int, int]]:
+    """UTF-8 byte spans of the words of a sentence; a word is a token of bivocab's segmentation
+    (any class), the unit of the word-level conditions.
+
+    >>> word_spans("Kellhaven harbour.")
+    [(0, 9), (10, 17), (17, 18)]
+    """
+    data = text.encode("utf-8")
+    spans, position = [], 0
+    for token in segment(text):
+        raw = token.encode("utf-8")
+        begin = data.index(raw, position)
+        position = begin + len(raw)
+        spans.append((begin, position))
+    return spans
+
+
+def pieces_per_word(words: Sequence[tuple[int, int]], pieces: Sequence[tuple[int, int, bool]]) -> np.ndarray:
+    """How many pieces make up each word.  ``pieces`` are (begin, end, is_byte) byte spans in
+    the sentence as sentencepiece reports them.  A piece belongs to the word holding its last
+    byte; a zero-width byte piece (a leading byte of a byte-fallback character) to the word at
+    its position; a piece of whitespace only (the boundary mark) to no word.
+
+    >>> pieces_per_word([(0, 4), (5, 7)], [(0, 2, False), (2, 4, False), (4, 7, False)]).tolist()
+    [2, 1]
+    """
+    starts = np.asarray([w[0] for w in words], dtype=np.int64)
+    ends = np.asarray([w[1] for w in words], dtype=np.int64)
+    counts = np.zeros(len(words), dtype=np.int64)
+    for begin, end, is_byte in pieces:
+        if end > begin:
+            position = end - 1
+        elif is_byte:
+            position = begin
+        else:
+            continue
+        w = int(np.searchsorted(starts, position, side="right")) - 1
+        if w >= 0 and position < ends[w]:
+            counts[w] += 1
+    return counts
+
+
+@dataclass(frozen=True)
+class WordPieceCounts:
+    """Words, pieces and continued words (words of two or more pieces) of some sentences."""
+
+    words: int
+    pieces: int
+    continued: int
+
+    def __add__(self, other: WordPieceCounts) -> WordPieceCounts:
+        return WordPieceCounts(self.words + other.words, self.pieces + other.pieces,
+                               self.continued + other.continued)
+
+    @property
+    def fertility(self) -> float:
+        """Pieces per word (Rust et al. 2021)."""
+        return self.pieces / self.words if self.words else 0.0
+
+    @property
+    def continued_proportion(self) -> float:
+        """Share of words split into two or more pieces (Rust et al. 2021)."""
+        return self.continued / self.words if self.words else 0.0
+
+
+def count_word_pieces(processor: spm.SentencePieceProcessor, text: str) -> WordPieceCounts:
+    """Encode one sentence and count its words, pieces (no end-of-sentence marker) and
+    continued words."""
+    encoded = processor.encode(text, out_type="proto")
+    spans = [(p.begin, p.end, processor.is_byte(p.id)) for p in encoded.pieces]
+    per_word = pieces_per_word(word_spans(text), spans)
+    return WordPieceCounts(len(per_word), len(spans), int((per_word >= 2).sum()))
+
+
+def _read_vocab_columns(path: Path, *names: str) -> list[list[str]]:
+    lines = path.read_text(encoding="utf-8").split("\n")
+    header = lines[0].split("\t")
+    rows = [line.split("\t") for line in lines[1:] if line]
+    return [[row[header.index(name)] for row in rows] for name in names]
+
+
+def subword_statistics(build_dir: str | Path, split: str = "test", max_sentences: int = 0) -> dict[str, Any]:
+    """Statistics of every subword condition of a build, as a JSON-ready dict (keys in
+    docs/subword.md).  Words and pieces are counted on ``split`` (the first ``max_sentences``
+    sentences per language in input order when > 0); id sharing on that split's shards."""
+    from .corpus import iter_sentences
+    from .manifest import read_manifest
+    from .recipe import recipe_from_manifest
+    from .shards import open_shards
+
+    out = Path(build_dir)
+    manifest = read_manifest(out)
+    if manifest is None:
+        raise BivocabError(f"{out}: no build.json: not a complete bivocab build")
+    if split not in SPLITS:
+        raise BivocabError(f"unknown split {split!r} (known: {', '.join(SPLITS)})")
+    names = [n for n, c in sorted(manifest["conditions"].items()) if c.get("units", "word") != "word"]
+    recipe = recipe_from_manifest(manifest, out)
+    tags = recipe.tags
+    processors = {n: [spm.SentencePieceProcessor(model_file=str(out / manifest["conditions"][n]["models"][t]))
+                      for t in tags] for n in names}
+    counts = {n: [WordPieceCounts(0, 0, 0) for _ in tags] for n in names}
+    seen = [0] * len(tags)
+    sentences = [0] * len(tags)
+    for sentence in (iter_sentences(recipe, (split,)) if names else ()):
+        li = tags.index(sentence.lang)
+        seen[li] += 1
+        if max_sentences and seen[li] > max_sentences:
+            continue
+        sentences[li] += 1
+        for n in names:
+            counts[n][li] = counts[n][li] + count_word_pieces(processors[n][li], sentence.text)
+
+    result: dict[str, Any] = {
+        "split": split,
+        "text": "comparable (not parallel): the parity ratio compares pieces per word, not pieces per translated sentence",
+        "conditions": {},
+    }
+    for n in names:
+        entry = manifest["conditions"][n]
+        classes, entry_langs = _read_vocab_columns(out / entry["vocab"], "class", "lang")
+        special = np.asarray([c == SPECIAL for c in classes])
+        usage = np.zeros((len(tags), len(classes)), dtype=np.int64)
+        reader = open_shards(out, n, split)
+        for shard in reader.shards:
+            tokens, offsets, langs = np.asarray(shard.tokens), np.asarray(shard.offsets), np.asarray(shard.langs)
+            token_lang = np.repeat(langs, np.diff(offsets))
+            for li in range(len(tags)):
+                usage[li] += np.bincount(tokens[token_lang == li], minlength=len(classes))[:len(classes)]
+        usage[:, special] = 0
+        both = (usage > 0).all(axis=0)
+        usable = [np.asarray([not (p.is_unused(i) or p.is_control(i) or p.is_unknown(i))
+                              for i in range(p.get_piece_size())]) for p in processors[n]]
+        in_both = int(np.logical_and.reduce(usable).sum())
+        n_specials = int(special.sum())
+        shared_entries = sum(1 for c, l in zip(classes, entry_langs) if c != SPECIAL and l == SHARED)
+        languages = {}
+        for li, tag in enumerate(tags):
+            c = counts[n][li]
+            total = int(usage[li].sum())
+            languages[tag] = {
+                "sentences": sentences[li], "words": c.words, "pieces": c.pieces,
+                "fertility": c.fertility, "continued_words": c.continued,
+                "continued_word_proportion": c.continued_proportion,
+                "shard_tokens": total,
+                "tokens_on_pieces_used_by_both": int(usage[li][both].sum()),
+                "share_of_tokens_on_pieces_used_by_both": float(usage[li][both].sum() / total) if total else 0.0,
+            }
+        fertilities = [counts[n][li].fertility for li in range(len(tags))]
+        all_tokens = int(usage.sum())
+        result["conditions"][n] = {
+            "policy": entry["policy"], "units": entry["units"], "size": entry["size"],
+            "languages": languages,
+            "parity_ratio": {f"{tags[0]}/{tags[1]}": fertilities[0] / fertilities[1] if fertilities[1] else 0.0},
+            "pieces_used_by_both": int(both.sum()),
+            "share_of_tokens_on_pieces_used_by_both": float(usage[:, both].sum() / all_tokens) if all_tokens else 0.0,
+            "size_identity": {
+                "specials": n_specials,
+                "model_pieces": {t: int(u.sum()) for t, u in zip(tags, usable)},
+                "pieces_in_both_models": in_both,
+                "size": len(classes),
+                "shared_entries": shared_entries,
+                # |V| = specials + |P_a| + |P_b| - |P_a & P_b|, and the ids both models can emit are
+                # exactly the entries vocab.tsv marks as shared.
+                "holds": (n_specials + sum(int(u.sum()) for u in usable) - in_both == len(classes)
+                          and in_both == shared_entries),
+            },
+        }
+    return result

@@ -89,6 +89,7 @@ class SubwordSpec:
     byte_fallback: bool = True        # unseen characters become byte pieces instead of <unk>
     max_sentence_bytes: int = 65536   # longer train sentences are left out of the sample (counted)
     train_threads: int = 1            # fixed, so the model does not depend on --jobs or the machine
+    exact_size: bool = True           # false: sentencepiece may stop short of the size on a small corpus
 
 
 @dataclass(frozen=True)
@@ -209,7 +210,7 @@ _CLASS_CHOICE = ("shared", "tagged")
 _SUBWORD_KEYS: dict[str, Any] = {
     "size": int, "size_per_language": int, "engine": ("sentencepiece",), "sample_sentences": int,
     "sample_alpha": float, "character_coverage": float, "byte_fallback": bool,
-    "max_sentence_bytes": int, "train_threads": int,
+    "max_sentence_bytes": int, "train_threads": int, "exact_size": bool,
 }
 _VOCAB_KEYS: dict[str, Any] = {
     "max_size": int, "min_count": int, "unknown": ("shared", "per-language"),

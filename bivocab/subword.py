@@ -130,7 +130,7 @@ def trainer_settings(units: str, vocab_size: int, spec: SubwordSpec) -> dict[str
         "split_by_unicode_script": True, "split_by_number": True, "split_digits": False,
         "max_sentencepiece_length": 16, "max_sentence_length": spec.max_sentence_bytes,
         "input_sentence_size": 0, "shuffle_input_sentence": False, "num_threads": spec.train_threads,
-        "hard_vocab_limit": True, "unk_id": 0, "bos_id": -1, "eos_id": -1, "pad_id": -1,
+        "hard_vocab_limit": spec.exact_size, "unk_id": 0, "bos_id": -1, "eos_id": -1, "pad_id": -1,
     }
 
 

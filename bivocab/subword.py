@@ -6,6 +6,7 @@ The rules (sample, models, merge, exported files, statistics) are documented in 
 
 from __future__ import annotations
 
+import csv
 import io
 import unicodedata
 import zlib
@@ -481,10 +482,11 @@ def count_word_pieces(processor: spm.SentencePieceProcessor, text: str) -> WordP
 
 
 def _read_vocab_columns(path: Path, *names: str) -> list[list[str]]:
-    lines = path.read_text(encoding="utf-8").split("\n")
-    header = lines[0].split("\t")
-    rows = [line.split("\t") for line in lines[1:] if line]
-    return [[row[header.index(name)] for row in rows] for name in names]
+    """Columns of a vocab.tsv (tab-separated with CSV quoting, see ``vocab.tsv_text``)."""
+    with open(path, encoding="utf-8", newline="") as handle:
+        rows = list(csv.reader(handle, delimiter="\t"))
+    header = rows[0]
+    return [[row[header.index(name)] for row in rows[1:]] for name in names]
 
 
 def subword_statistics(build_dir: str | Path, split: str = "test", max_sentences: int = 0) -> dict[str, Any]:

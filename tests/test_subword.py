@@ -11,6 +11,7 @@ import shutil
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pytest
 import sentencepiece as spm
 from sentencepiece import sentencepiece_model_pb2 as model_pb2
@@ -74,7 +75,9 @@ size = 800
 """
 
 
-def write_corpus(root: Path, sentences: int = 1500, seed: int = 3, skew: float = 1.0) -> None:
+def write_subword_corpus(root: Path, sentences: int = 1500, seed: int = 3, skew: float = 1.0) -> None:
+    """A corpus with enough distinct spellings for a few hundred pieces per language (the
+    conftest corpus has too few characters and words for a subword model)."""
     rng = random.Random(seed)
     en = _EN + ["".join(rng.choice(_SYLLABLES) for _ in range(rng.randint(2, 4))) for _ in range(300)]
     de = _DE + ["".join(rng.choice(_SYLLABLES) for _ in range(rng.randint(2, 4))) + rng.choice(["en", "ung", "ß", "ä"])
@@ -86,7 +89,7 @@ def write_corpus(root: Path, sentences: int = 1500, seed: int = 3, skew: float =
 
 
 def make_project(root: Path, recipe: str = RECIPE, **corpus: float) -> Path:
-    write_corpus(root, **corpus)
+    write_subword_corpus(root, **corpus)
     path = root / "recipe.toml"
     path.write_text(recipe, encoding="utf-8")
     return path
@@ -103,6 +106,10 @@ def built(tmp_path_factory) -> Path:
     recipe = make_project(root)
     build(recipe, root / "out", jobs=1)
     return root / "out"
+
+
+def read_vocab(path: Path) -> pd.DataFrame:
+    return pd.read_csv(path, sep="\t", keep_default_na=False, dtype=str)
 
 
 def manifest_of(out: Path) -> dict:
@@ -149,7 +156,7 @@ def test_the_exported_model_encodes_exactly_like_the_model_sentencepiece_trained
     # The merged id space must not change the segmentation: encoding with the exported model
     # (other language's pieces as UNUSED placeholders, specials moved first) gives the trained
     # model's pieces, shifted into the merged ids.
-    write_corpus(tmp_path, sentences=600)
+    write_subword_corpus(tmp_path, sentences=600)
     recipe = load_recipe(make_project(tmp_path))
     condition = next(c for c in recipe.conditions if c.name == "separate")
     texts = {t: (tmp_path / "corpus" / t / "a.txt").read_text(encoding="utf-8").splitlines() for t in recipe.tags}
@@ -179,9 +186,9 @@ def test_model_files_embed_no_input_path_or_machine_dependent_setting(built):
 
 def test_vocab_tsv_follows_the_word_level_contract_and_counts_the_train_shards(built):
     for name, entry in subword_conditions(built).items():
-        lines = (built / entry["vocab"]).read_text(encoding="utf-8").splitlines()
-        assert lines[0].split("\t") == ["id", "token", "surface", "lang", "class", "count", "count_en", "count_de"]
-        rows = [line.split("\t") for line in lines[1:]]
+        table = read_vocab(built / entry["vocab"])
+        assert list(table.columns) == ["id", "token", "surface", "lang", "class", "count", "count_en", "count_de"]
+        rows = table.astype(str).values.tolist()
         assert [int(r[0]) for r in rows] == list(range(len(rows))) == list(range(entry["size"]))
         assert len({r[1] for r in rows}) == len(rows)
         counts = np.zeros((2, len(rows)), dtype=np.int64)
@@ -227,7 +234,7 @@ def test_fully_tagged_subword_condition_uses_no_id_in_both_languages(built):
 
 
 def test_word_tagged_shares_only_punctuation_and_symbol_pieces_and_uses_them_in_both(built):
-    rows = [line.split("\t") for line in (built / "tagged-words" / "vocab.tsv").read_text(encoding="utf-8").splitlines()[1:]]
+    rows = read_vocab(built / "tagged-words" / "vocab.tsv").astype(str).values.tolist()
     shared = {int(r[0]) for r in rows if r[3] == "*" and r[4] != "special"}
     assert shared and all(rows[i][4] in ("punct", "symbol") for i in shared)
     assert not any(ch.isalnum() for i in shared for ch in rows[i][2])
@@ -370,7 +377,7 @@ def test_statistics_count_the_same_pieces_as_the_shards(built):
     ('units = "wordpiece"\nsize = 300', "expected one of"),
 ])
 def test_bad_subword_keys_are_one_line_errors_naming_file_and_line(tmp_path, extra, problem):
-    write_corpus(tmp_path, sentences=20)
+    write_subword_corpus(tmp_path, sentences=20)
     text = RECIPE.split("[[condition]]")[0] + f'[[condition]]\nname = "bad"\npolicy = "shared"\n{extra}\n'
     path = tmp_path / "recipe.toml"
     path.write_text(text, encoding="utf-8")

@@ -2,8 +2,8 @@
 
 Prints wall-clock seconds and ratios against baselines measured in the same run:
 (a) reading the sample text once, (b) the raw sentencepiece trainer on the same text, read by
-sentencepiece from a file with its own defaults for sampling (the fastest way to use the library
-directly).  "bivocab" is the whole subword stage for one condition: seeded sample, training from
+sentencepiece from files (the direct way to use the library), (c) raw sentencepiece encoding of
+every sentence with that model.  "bivocab" is the whole subword stage for one condition: seeded sample, training from
 an iterator, merged model export and encoding of every sentence.
 
     python benchmarks/subword_train.py --sentences 1000000 --size 8000
@@ -101,14 +101,27 @@ def main() -> None:
 
         joint = recipe.conditions[0]
         settings = trainer_settings("unigram", args.size - 2, joint.subword)
+        raw_model = io.BytesIO()
         raw_s, _ = timed(lambda: spm.SentencePieceTrainer.train(
-            input=f"{root / 'en.txt'},{root / 'de.txt'}", model_writer=io.BytesIO(), minloglevel=2,
+            input=f"{root / 'en.txt'},{root / 'de.txt'}", model_writer=raw_model, minloglevel=2,
             **{**settings, "input_sentence_size": 0}))
+        processor = spm.SentencePieceProcessor(model_proto=raw_model.getvalue())
+
+        def encode_all() -> int:
+            pieces = 0
+            for t in ("en", "de"):
+                lines = (root / f"{t}.txt").read_text(encoding="utf-8").splitlines()
+                for first in range(0, len(lines), 20_000):
+                    pieces += sum(map(len, processor.encode(lines[first:first + 20_000], num_threads=args.jobs)))
+            return pieces
+        encode_s, _ = timed(encode_all)
 
         texts = [SentenceText(root / f"{t}.txt", args.sentences) for t in ("en", "de")]
         splits = [np.zeros(args.sentences, dtype=np.uint8) for _ in texts]
         rows = [("baseline (a): read the text once", read_s),
-                ("baseline (b): raw sentencepiece trainer, joint unigram, from files", raw_s)]
+                ("baseline (b): raw sentencepiece trainer, joint unigram, from files", raw_s),
+                ("baseline (c): raw sentencepiece encoding of every sentence", encode_s),
+                ("baseline (b) + (c)", raw_s + encode_s)]
         for condition in recipe.conditions:
             work = root / f"work-{condition.name}"
             work.mkdir()
@@ -116,7 +129,8 @@ def main() -> None:
             rows.append((f"bivocab {condition.name} unigram: sample + train + export + encode all", seconds))
         print(f"vocabulary size {args.size}, training threads {args.threads}, encoding threads {args.jobs}")
         for label, seconds in rows:
-            print(f"  {label:<72} {seconds:8.1f} s  x{seconds / raw_s:5.2f} of (b)  x{seconds / read_s:6.1f} of (a)")
+            print(f"  {label:<72} {seconds:8.1f} s  x{seconds / (raw_s + encode_s):5.2f} of (b)+(c)"
+                  f"  x{seconds / read_s:6.1f} of (a)")
 
 
 if __name__ == "__main__":

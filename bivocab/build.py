@@ -27,7 +27,8 @@ from .segment import token_class
 from .shards import PROVENANCE_DTYPE, shard_stem, write_npy
 from .sources import InputFile, file_sha256, read_blocks
 from .splits import split_thresholds
-from .subword import SentenceText, SubwordCondition, build_subword_condition, model_path
+from .subword import (SentenceText, SubwordCondition, build_subword_condition, model_path, tokenizer_path,
+                      unigram_tokenizer_json)
 from .vocab import Vocabulary, build_vocabulary, tokenizer_json, tsv_text, vocab_tsv
 
 INCOMPLETE = ".bivocab-incomplete"
@@ -281,11 +282,15 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
         atomic_write_text(out / path, vocab_tsv(vocab))
         written.append(path)
         if cond.name in subwords:
-            for tag, model in zip(tags, subwords[cond.name].models):
+            for li, (tag, model) in enumerate(zip(tags, subwords[cond.name].models)):
                 path = model_path(cond.name, tag)
                 with atomic_open(out / path) as handle:
                     handle.write(model)
                 written.append(path)
+                if cond.units == "unigram":
+                    path = tokenizer_path(cond.name, tag)
+                    atomic_write_text(out / path, unigram_tokenizer_json(model, vocab, li, recipe.clean))
+                    written.append(path)
             continue
         for li, tag in enumerate(tags):
             path = f"{cond.name}/tokenizer.{tag}.json"
@@ -303,7 +308,8 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
     manifest = _manifest(recipe, out, files, hashes, per_file, scans, vocabs, shard_paths, written, summaries)
     for name, sub in subwords.items():
         entry = manifest["conditions"][name]
-        entry.update(tokenizers={}, models={t: model_path(name, t) for t in tags}, subword=sub.record)
+        entry.update(models={t: model_path(name, t) for t in tags}, subword=sub.record,
+                     tokenizers={t: tokenizer_path(name, t) for t in tags} if sub.record["units"] == "unigram" else {})
     atomic_write_text(out / MANIFEST, canonical_json(manifest))
     return BuildResult(out, manifest, summaries)
 

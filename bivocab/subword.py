@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import csv
 import io
+import json
 import unicodedata
 import zlib
 from dataclasses import dataclass
@@ -19,10 +20,10 @@ import sentencepiece as spm
 from sentencepiece import sentencepiece_model_pb2 as model_pb2
 
 from .errors import BivocabError
-from .recipe import SPLITS, ConditionSpec, Recipe, SubwordSpec
+from .recipe import SPLITS, CleanSpec, ConditionSpec, Recipe, SubwordSpec
 from .scan import ragged_gather
 from .segment import NUMBER, PUNCT, SPECIAL, SYMBOL, WORD, segment
-from .vocab import SHARED, Entry, Vocabulary, _specials, tagged_token
+from .vocab import SHARED, Entry, Vocabulary, _specials, tagged_token, tokenizer_json
 
 BOUNDARY = "\u2581"                   # sentencepiece's visible space, written before a word
 SPACE, BYTE = "space", "byte"         # piece classes beyond the token classes
@@ -245,6 +246,36 @@ def export_model(template: model_pb2.ModelProto, lang_index: int, tags: tuple[st
     if pad_id is not None:
         spec.pad_piece = specials[pad_id][0]
     return proto.SerializeToString(deterministic=True)
+
+
+def unigram_tokenizer_json(model: bytes, vocab: Vocabulary, lang_index: int, clean: CleanSpec) -> str:
+    """A ``tokenizers`` Unigram tokenizer for one language of a unigram condition, giving the
+    shard ids (end-of-sentence token included) for that language's sentences.
+
+    It keeps the word-level tokenizer's normalizer (our cleaning) and end-of-sentence
+    post-processor and swaps in the model: sentencepiece's pieces and scores in the condition's
+    id space, a Metaspace pre-tokenizer (sentencepiece's pieces never hold U+2581 past their first
+    character, so splitting there changes nothing) and byte fallback.  Specials, and the other
+    language's placeholders, are named with a leading U+001F in the model's vocabulary so that no
+    text can match them, as sentencepiece never matches control pieces in text."""
+    from tokenizers import Tokenizer
+
+    proto = model_pb2.ModelProto()
+    proto.ParseFromString(model)
+    pieces = [[f"{_FOREIGN}{p.piece}" if p.type in (_Piece.CONTROL, _Piece.UNKNOWN) else p.piece,
+               p.score if p.type in (_Piece.NORMAL, _Piece.BYTE) else 0.0] for p in proto.pieces]
+    doc = json.loads(tokenizer_json(vocab, lang_index, clean))
+    doc["model"] = {"type": "Unigram", "unk_id": proto.trainer_spec.unk_id, "vocab": pieces,
+                    "byte_fallback": proto.trainer_spec.byte_fallback}
+    doc["pre_tokenizer"] = {"type": "Metaspace", "replacement": BOUNDARY, "prepend_scheme": "always", "split": True}
+    doc["decoder"] = {"type": "Sequence", "decoders": [
+        {"type": "ByteFallback"},
+        {"type": "Metaspace", "replacement": BOUNDARY, "prepend_scheme": "always", "split": True}]}
+    return Tokenizer.from_str(json.dumps(doc, ensure_ascii=False)).to_str(pretty=True) + "\n"
+
+
+def tokenizer_path(condition: str, tag: str) -> str:
+    return f"{condition}/tokenizer.{tag}.json"
 
 
 # --- one condition -------------------------------------------------------------------------------
@@ -528,7 +559,7 @@ def subword_statistics(build_dir: str | Path, split: str = "test", max_sentences
     }
     for n in names:
         entry = manifest["conditions"][n]
-        classes, entry_langs = _read_vocab_columns(out / entry["vocab"], "class", "lang")
+        classes, entry_langs, entry_tokens = _read_vocab_columns(out / entry["vocab"], "class", "lang", "token")
         special = np.asarray([c == SPECIAL for c in classes])
         usage = np.zeros((len(tags), len(classes)), dtype=np.int64)
         reader = open_shards(out, n, split)
@@ -537,6 +568,9 @@ def subword_statistics(build_dir: str | Path, split: str = "test", max_sentences
             token_lang = np.repeat(langs, np.diff(offsets))
             for li in range(len(tags)):
                 usage[li] += np.bincount(tokens[token_lang == li], minlength=len(classes))[:len(classes)]
+        unknown_ids = [i for i, (c, t) in enumerate(zip(classes, entry_tokens))
+                       if c == SPECIAL and (t == "<unk>" or t.startswith("<unk:"))]
+        unknown_tokens = usage[:, unknown_ids].sum(axis=1)
         usage[:, special] = 0
         both = (usage > 0).all(axis=0)
         usable = [np.asarray([not (p.is_unused(i) or p.is_control(i) or p.is_unknown(i))
@@ -552,7 +586,8 @@ def subword_statistics(build_dir: str | Path, split: str = "test", max_sentences
                 "sentences": sentences[li], "words": c.words, "pieces": c.pieces,
                 "fertility": c.fertility, "continued_words": c.continued,
                 "continued_word_proportion": c.continued_proportion,
-                "shard_tokens": total,
+                "shard_tokens": total + int(unknown_tokens[li]),
+                "unknown_tokens": int(unknown_tokens[li]),
                 "tokens_on_pieces_used_by_both": int(usage[li][both].sum()),
                 "share_of_tokens_on_pieces_used_by_both": float(usage[li][both].sum() / total) if total else 0.0,
             }

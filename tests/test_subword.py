@@ -15,6 +15,7 @@ import pandas as pd
 import pytest
 import sentencepiece as spm
 from sentencepiece import sentencepiece_model_pb2 as model_pb2
+from tokenizers import Tokenizer
 
 from bivocab import build, load_recipe
 from bivocab.corpus import iter_sentences
@@ -52,7 +53,7 @@ policy = "shared"
 name = "joint"
 policy = "shared"
 units = "unigram"
-size = 350
+size = 400
 [[condition]]
 name = "joint-smoothed"
 policy = "shared"
@@ -72,6 +73,12 @@ name = "tagged-words"
 policy = "word-tagged"
 units = "bpe"
 size = 800
+[[condition]]
+name = "joint-no-bytes"
+policy = "shared"
+units = "unigram"
+size = 150
+byte_fallback = false
 """
 
 
@@ -85,6 +92,9 @@ def write_subword_corpus(root: Path, sentences: int = 1500, seed: int = 3, skew:
     for lang, words, n in (("en", en, sentences), ("de", de, int(sentences * skew))):
         (root / "corpus" / lang).mkdir(parents=True, exist_ok=True)
         lines = [" ".join(rng.choice(words) for _ in range(rng.randint(4, 14))) + " ." for _ in range(n)]
+        # Sentences with a character seen nowhere else: those outside the train split exercise
+        # the unknown token when byte fallback is off.
+        lines += [f"{rng.choice(words)} {chr(0x0100 + 2 * i + (lang == 'de'))} ." for i in range(12)]
         (root / "corpus" / lang / "a.txt").write_text("\n".join(lines) + "\n", encoding="utf-8")
 
 
@@ -147,9 +157,33 @@ def test_each_exported_model_reproduces_the_shard_ids_and_decodes_to_the_normali
             sentence = sentences[(int(prov["input"]), int(prov["line"]))]
             model = models[sentence.lang]
             assert ids == model.encode(sentence.text) + [model.eos_id()], (name, sentence.text)
-            assert model.decode(ids) == sentence.text
+            if model.unk_id() not in ids:
+                assert model.decode(ids) == sentence.text
             checked += 1
         assert checked == len(sentences)
+
+
+@pytest.mark.parametrize("split", ["train", "valid", "test"])
+def test_unigram_tokenizer_json_reproduces_the_shard_ids_and_decodes_to_the_normalised_text(built, split):
+    # Reference library: tokenizers loads the exported tokenizer.<tag>.json files.
+    sentences = sentences_by_position(built, split)
+    unigram = {n: e for n, e in subword_conditions(built).items() if e["units"] == "unigram"}
+    assert len(unigram) == 3
+    for name, entry in unigram.items():
+        tokenizers = {t: Tokenizer.from_file(str(built / p)) for t, p in entry["tokenizers"].items()}
+        unk = {t: spm.SentencePieceProcessor(model_file=str(built / p)).unk_id() for t, p in entry["models"].items()}
+        for prov, ids in shard_sentences(built, name, split):
+            sentence = sentences[(int(prov["input"]), int(prov["line"]))]
+            tokenizer = tokenizers[sentence.lang]
+            assert tokenizer.encode(sentence.text).ids == ids, (name, sentence.text)
+            if unk[sentence.lang] not in ids:
+                assert tokenizer.decode(ids[:-1]) == sentence.text
+
+
+def test_without_byte_fallback_unseen_characters_become_the_unknown_token(built):
+    summary = manifest_of(built)["conditions"]["joint-no-bytes"]["stats"]
+    assert sum(summary["test"]["oov"].values()) + sum(summary["valid"]["oov"].values()) > 0
+    assert sum(summary["train"]["oov"].values()) == 0      # character_coverage 1: train is covered
 
 
 def test_the_exported_model_encodes_exactly_like_the_model_sentencepiece_trained(tmp_path):
@@ -266,7 +300,7 @@ def test_vocabulary_size_identities_hold(built):
     separate = manifest["conditions"]["separate"]
     # fully tagged: |V| = specials + |P_en| + |P_de| (pad + two unknowns + two end markers)
     assert separate["size"] == 5 + 2 * 330
-    assert manifest["conditions"]["joint"]["size"] == 350
+    assert manifest["conditions"]["joint"]["size"] == 400
     stats = subword_statistics(built)["conditions"]
     assert all(c["size_identity"]["holds"] for c in stats.values())
     assert stats["separate"]["size_identity"]["pieces_in_both_models"] == 0
@@ -394,3 +428,14 @@ def test_a_size_the_corpus_cannot_fill_is_a_clear_error(tmp_path):
     with pytest.raises(BivocabError, match=r"condition 'huge': sentencepiece could not train 89998 pieces"):
         build(path, tmp_path / "out")
     assert not (tmp_path / "out" / "build.json").exists()
+
+
+def test_exact_size_false_lets_a_small_corpus_stop_short_of_the_size(tmp_path):
+    recipe = (RECIPE.split("[[condition]]")[0] + '[[condition]]\nname = "soft"\npolicy = "fully-tagged"\n'
+              'units = "unigram"\nsize_per_language = 5000\nexact_size = false\n')
+    out = tmp_path / "out"
+    build(make_project(tmp_path, recipe, sentences=300), out)
+    entry = manifest_of(out)["conditions"]["soft"]
+    assert entry["size"] < 3 + 2 * 5000
+    assert entry["size"] == 3 + sum(entry["subword"]["model_pieces"].values())
+    assert subword_statistics(out)["conditions"]["soft"]["size_identity"]["holds"]

@@ -317,6 +317,52 @@ def _vocab_sizes(condition: ConditionSpec, n_specials: int, n_models: int) -> li
     return [base + 1 + (1 if i < extra else 0) for i in range(n_models)]
 
 
+def training_sample(condition: ConditionSpec, recipe: Recipe, texts: Sequence[SentenceText],
+                    splits: Sequence[np.ndarray]) -> tuple[list[np.ndarray], dict[str, Any]]:
+    """The rows each language contributes to training (docs/subword.md, "Training sample") and
+    what build.json records about them."""
+    spec = condition.subword
+    assert spec is not None
+    train_code = SPLITS.index("train")
+    eligible, record = [], {}
+    for li, tag in enumerate(recipe.tags):
+        in_train = np.flatnonzero(np.asarray(splits[li]) == train_code)
+        fits = texts[li].byte_lengths()[in_train] <= spec.max_sentence_bytes
+        eligible.append(in_train[fits])
+        record[tag] = {"train_sentences": int(len(in_train)), "too_long": int((~fits).sum())}
+        if not fits.any():
+            raise BivocabError(f"condition '{condition.name}': language '{tag}' has no train sentence of at "
+                               f"most {spec.max_sentence_bytes} bytes to train on")
+    available = [len(e) for e in eligible]
+    if is_joint(condition):
+        total = spec.sample_sentences * len(available) if spec.sample_sentences else sum(available)
+        shares = smoothed_shares(available, spec.sample_alpha)
+        counts = allocate(total, shares)
+        for tag, share in zip(recipe.tags, shares.tolist()):
+            record[tag]["share"] = share
+    else:
+        counts = [min(spec.sample_sentences, n) if spec.sample_sentences else n for n in available]
+    for tag, count in zip(recipe.tags, counts):
+        record[tag]["drawn"] = count
+    return [draw_rows(e, c, recipe.seed, li) for li, (e, c) in enumerate(zip(eligible, counts))], record
+
+
+def train_models(condition: ConditionSpec, recipe: Recipe, texts: Sequence[SentenceText],
+                 drawn: Sequence[np.ndarray], sizes: Sequence[int]) -> list[model_pb2.ModelProto]:
+    """One joint model on the seeded mix of both samples, or one model per language."""
+    spec = condition.subword
+    assert spec is not None
+    if is_joint(condition):
+        langs = np.concatenate([np.full(len(d), li, np.uint8) for li, d in enumerate(drawn)])
+        rows = np.concatenate(drawn)
+        rng = np.random.Generator(np.random.PCG64(np.random.SeedSequence([recipe.seed, _SALT, len(drawn)])))
+        stream = (texts[langs[i]].sentence(int(rows[i])) for i in rng.permutation(len(rows)))
+        return [train_model(stream, condition.units, sizes[0], spec, f"condition '{condition.name}'")]
+    return [train_model((texts[li].sentence(int(r)) for r in drawn[li]), condition.units, sizes[li], spec,
+                        f"condition '{condition.name}' (language '{tag}')")
+            for li, tag in enumerate(recipe.tags)]
+
+
 def build_subword_condition(condition: ConditionSpec, recipe: Recipe, texts: Sequence[SentenceText],
                             splits: Sequence[np.ndarray], work: Path, jobs: int) -> SubwordCondition:
     """Sample, train, merge, export and encode one subword condition.
@@ -335,37 +381,9 @@ def build_subword_condition(condition: ConditionSpec, recipe: Recipe, texts: Seq
     pad_id = index.get("<pad>")
 
     train_code = SPLITS.index("train")
-    eligible, sample_record = [], {}
-    for li, tag in enumerate(tags):
-        in_train = np.flatnonzero(np.asarray(splits[li]) == train_code)
-        fits = texts[li].byte_lengths()[in_train] <= spec.max_sentence_bytes
-        eligible.append(in_train[fits])
-        sample_record[tag] = {"train_sentences": int(len(in_train)), "too_long": int((~fits).sum())}
-        if not fits.any():
-            raise BivocabError(f"condition '{condition.name}': language '{tag}' has no train sentence of at "
-                               f"most {spec.max_sentence_bytes} bytes to train on")
-    available = [len(e) for e in eligible]
-    if joint:
-        total = spec.sample_sentences * len(tags) if spec.sample_sentences else sum(available)
-        counts = allocate(total, smoothed_shares(available, spec.sample_alpha))
-    else:
-        counts = [min(spec.sample_sentences, n) if spec.sample_sentences else n for n in available]
-    drawn = [draw_rows(e, c, recipe.seed, li) for li, (e, c) in enumerate(zip(eligible, counts))]
-    for li, tag in enumerate(tags):
-        sample_record[tag]["drawn"] = counts[li]
-
+    drawn, sample_record = training_sample(condition, recipe, texts, splits)
     sizes = _vocab_sizes(condition, len(specials), 1 if joint else len(tags))
-    if joint:
-        langs = np.concatenate([np.full(len(d), li, np.uint8) for li, d in enumerate(drawn)])
-        rows = np.concatenate(drawn)
-        rng = np.random.Generator(np.random.PCG64(np.random.SeedSequence([recipe.seed, _SALT, len(tags)])))
-        order = rng.permutation(len(rows))
-        stream = (texts[langs[i]].sentence(int(rows[i])) for i in order)
-        models = [train_model(stream, condition.units, sizes[0], spec, f"condition '{condition.name}'")]
-    else:
-        models = [train_model((texts[li].sentence(int(r)) for r in drawn[li]), condition.units, sizes[li], spec,
-                              f"condition '{condition.name}' (language '{tag}')")
-                  for li, tag in enumerate(tags)]
+    models = train_models(condition, recipe, texts, drawn, sizes)
     pieces = merge_pieces(models, tags, condition)
     files = tuple(export_model(models[0 if joint else li], li, tags, specials, pieces, unk_ids[li],
                                None if eos_ids is None else eos_ids[li], pad_id) for li in range(len(tags)))

@@ -477,6 +477,15 @@ policy = "fully-tagged"
 # classes = { number = "shared" }   # override the policy for single token classes
 # share = ["Hotel", "Radio"]        # force these spellings to one shared entry
 # separate = ["also", "bald"]       # force these spellings to one entry per language
+
+# A subword condition trains sentencepiece models on a seeded sample of the train split
+# (docs/subword.md): one joint model under "shared", one model per language otherwise.
+# [[condition]]
+# name = "joint-unigram"
+# policy = "shared"
+# units = "unigram"                 # word (default) | unigram | bpe
+# size = 8000                       # vocabulary entries, specials included
+# sample_alpha = 0.5                # exponent-smoothed language shares of the joint sample
 '''
 
 

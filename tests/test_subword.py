@@ -439,3 +439,15 @@ def test_exact_size_false_lets_a_small_corpus_stop_short_of_the_size(tmp_path):
     assert entry["size"] < 3 + 2 * 5000
     assert entry["size"] == 3 + sum(entry["subword"]["model_pieces"].values())
     assert subword_statistics(out)["conditions"]["soft"]["size_identity"]["holds"]
+
+
+def test_long_train_sentences_are_left_out_of_the_sample_and_counted(tmp_path):
+    recipe = (RECIPE.split("[[condition]]")[0] + '[[condition]]\nname = "short"\npolicy = "fully-tagged"\n'
+              'units = "bpe"\nsize_per_language = 5000\nexact_size = false\nmax_sentence_bytes = 60\n')
+    out = tmp_path / "out"
+    build(make_project(tmp_path, recipe, sentences=300), out)
+    sample = manifest_of(out)["conditions"]["short"]["subword"]["sample"]
+    texts = [s.text for s in iter_sentences(load_recipe(tmp_path / "recipe.toml"), ("train",), "en")]
+    too_long = sum(len(t.encode("utf-8")) > 60 for t in texts)
+    assert sample["en"]["too_long"] == too_long > 0
+    assert sample["en"]["drawn"] == sample["en"]["train_sentences"] - too_long

@@ -11,10 +11,10 @@ from .build import BuildResult, build  # noqa: E402
 from .errors import BivocabError, CheckFailed, InputError, OutputError, RecipeError  # noqa: E402
 from .recipe import POLICIES, Recipe, load_recipe  # noqa: E402
 from .segment import segment, token_class  # noqa: E402
-from .shards import ShardReader, open_shards  # noqa: E402
+from .shards import ShardReader, open_shards, torch_dataset  # noqa: E402
 
 __all__ = [
     "BivocabError", "BuildResult", "CheckFailed", "InputError", "OutputError", "POLICIES", "Recipe",
     "RecipeError", "ShardReader", "__version__", "build", "load_recipe", "open_shards", "segment",
-    "token_class",
+    "token_class", "torch_dataset",
 ]

@@ -18,13 +18,14 @@ import numpy as np
 
 from . import __version__
 from .errors import BivocabError, OutputError
+from .hygiene import prepare_hygiene
 from .manifest import (LOCK, MANIFEST, WORK, atomic_open, atomic_write_text, build_lock,
                        canonical_json, environment, read_manifest, sha256_file)
 from .mix import SplitOrder, mix_split
 from .recipe import SPLITS, Recipe, load_recipe
 from .scan import ScanResult, ScanTask, TypeTable, ordered_map, ragged_gather, scan_block
 from .segment import token_class
-from .shards import PROVENANCE_DTYPE, shard_stem, write_npy
+from .shards import PROVENANCE_DTYPE, ShardWriter, shard_stem, write_npy
 from .sources import InputFile, file_sha256, read_blocks
 from .splits import split_thresholds
 from .subword import (SentenceText, SubwordCondition, build_subword_condition, model_path, tokenizer_path,
@@ -77,7 +78,7 @@ def _quiet(_: str) -> None:
 
 def input_files(recipe: Recipe) -> list[InputFile]:
     base = recipe.base_dir
-    return [InputFile(base / f, f, lang.tag) for lang in recipe.languages for f in lang.files]
+    return [InputFile(base / f, f, lang.tag, lang.read) for lang in recipe.languages for f in lang.files]
 
 
 def check_output_dir(out: Path, recipe: Recipe, force: bool) -> None:
@@ -201,8 +202,10 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
     writers = [_WorkArrays(work, tag) for tag in tags]
     lang_of_file = [tags.index(f.language) for f in files]
     per_file: list[Counter] = [Counter() for _ in files]
+    hygiene = prepare_hygiene(recipe, files, jobs)
     for result in ordered_map(scan_block, _scan_tasks(recipe, files), jobs):
         li = lang_of_file[result.file_index]
+        result = hygiene.filter_scan(result, li)
         scan = scans[li]
         per_file[result.file_index].update(result.counters)
         lut = scan.table.merge(result.local_types)
@@ -243,11 +246,15 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
     written: list[str] = []
     shard_paths: dict[str, dict[str, list[str]]] = {c.name: {} for c in recipe.conditions}
     stats = {c.name: {s: [0, 0, [0] * len(tags), [0] * len(tags)] for s in SPLITS} for c in recipe.conditions}
+    mixing: dict[str, dict] = {}
+    shard_writer = ShardWriter(out, recipe.shards, tags, [f.display for f in files])
     starts = [np.concatenate(([0], np.cumsum(a["lengths"])[:-1])).astype(np.int64) if len(a["lengths"])
               else np.zeros(0, np.int64) for a in arrays]
     for si, split in enumerate(SPLITS):
         rows = [np.flatnonzero(np.asarray(a["splits"]) == si) for a in arrays]
-        order = mix_split(si, rows, recipe.mix, recipe.seed)
+        order = mix_split(si, rows, recipe.mix, recipe.seed, [a["lengths"] for a in arrays])
+        if order.sampling is not None:
+            mixing[split] = order.sampling
         for cond in recipe.conditions:
             shard_paths[cond.name][split] = []
         for shard_index, members in enumerate(_shard_members(order, arrays, recipe.shards.max_tokens)):
@@ -271,8 +278,8 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
                 sub = subwords.get(cond.name)
                 here = gathered if sub is None else [
                     (mask, *sub.gather(li, rows_here[mask])) for li, (mask, _, _) in enumerate(gathered)]
-                paths = _write_condition_shard(out, cond.name, stem, vocab, langs, here,
-                                               stats[cond.name][split])
+                paths = _write_condition_shard(shard_writer, cond.name, stem, vocab, langs, here,
+                                               stats[cond.name][split], prov)
                 written += paths
                 shard_paths[cond.name][split].append(f"{cond.name}/{stem}")
 
@@ -310,6 +317,8 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
         entry = manifest["conditions"][name]
         entry.update(models={t: model_path(name, t) for t in tags}, subword=sub.record,
                      tokenizers={t: tokenizer_path(name, t) for t in tags} if sub.record["units"] == "unigram" else {})
+    manifest["mixing"] = mixing
+    manifest["hygiene"] = hygiene.report()
     atomic_write_text(out / MANIFEST, canonical_json(manifest))
     return BuildResult(out, manifest, summaries)
 
@@ -330,8 +339,9 @@ def _shard_members(order: SplitOrder, arrays: list[dict[str, np.ndarray]], max_t
     yield from np.split(np.arange(len(lengths)), cuts)
 
 
-def _write_condition_shard(out: Path, condition: str, stem: str, vocab: Vocabulary, langs: np.ndarray,
-                           gathered: list[tuple[np.ndarray, np.ndarray, np.ndarray]], stat: list) -> list[str]:
+def _write_condition_shard(writer: ShardWriter, condition: str, stem: str, vocab: Vocabulary, langs: np.ndarray,
+                           gathered: list[tuple[np.ndarray, np.ndarray, np.ndarray]], stat: list,
+                           provenance: np.ndarray) -> list[str]:
     eos = vocab.eos_ids is not None
     n = len(langs)
     sent_len = np.empty(n, dtype=np.int64)
@@ -350,12 +360,7 @@ def _write_condition_shard(out: Path, condition: str, stem: str, vocab: Vocabula
         stat[3][li] += len(ids)
     stat[0] += n
     stat[1] += int(sum(len(t) for _, _, t in gathered))
-    paths = []
-    for suffix, array in (("tokens", tokens), ("offsets", offsets), ("langs", langs.astype(np.uint8))):
-        path = f"{condition}/{stem}.{suffix}.npy"
-        write_npy(out / path, array)
-        paths.append(path)
-    return paths
+    return writer.write(f"{condition}/{stem}", tokens, offsets, langs.astype(np.uint8), provenance)
 
 
 def types_tsv(scan: LanguageScan) -> str:

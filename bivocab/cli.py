@@ -9,6 +9,7 @@ import click
 
 from . import __version__
 from .errors import BivocabError
+from .probe import DEFAULT_NGRAM
 
 
 class _Group(click.Group):
@@ -70,6 +71,28 @@ def build_command(recipe: Path, out: Path, jobs: int, force: bool, quiet: bool) 
     result = build(recipe, out, jobs=jobs, force=force, progress=show)
     if not quiet:
         click.echo(summary_text(result))
+
+
+@main.command(name="probe")
+@click.argument("directory", type=click.Path(file_okay=False, path_type=Path))
+@click.argument("items", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--ngram", default=DEFAULT_NGRAM, show_default=True, type=click.IntRange(min=1),
+              help="Word n-gram length for the contamination check.")
+@click.option("--json", "as_json", is_flag=True, help="Print the summary as JSON.")
+@click.option("--strict", is_flag=True, help="Exit 1 if an item has an OOV critical word or is contaminated.")
+def probe_command(directory: Path, items: Path, ngram: int, as_json: bool, strict: bool) -> None:
+    """Encode the test items in ITEMS under every condition of the build in DIRECTORY and check them."""
+    import json
+
+    from .errors import CheckFailed
+    from .probe import probe, summary_json, summary_text
+
+    result = probe(directory, items, ngram=ngram)
+    click.echo(json.dumps(summary_json(result), indent=2, ensure_ascii=False) if as_json else summary_text(result))
+    failing = result.failing_items
+    if strict and failing:
+        raise CheckFailed(f"{items}: {len(failing)} item(s) have an OOV critical word or are contaminated: "
+                          f"{', '.join(failing)}")
 
 
 if __name__ == "__main__":

@@ -28,11 +28,25 @@ POLICIES: dict[str, dict[str, str]] = {
 SPLITS: tuple[str, ...] = ("train", "valid", "test")
 
 
+INPUT_FORMATS: tuple[str, ...] = ("auto", "text", "jsonl", "csv", "tsv", "parquet", "datasets")
+
+
+@dataclass(frozen=True)
+class ReadSpec:
+    """How a language's input files are read (docs/inputs.md)."""
+
+    format: str = "auto"              # auto (by file extension) | text | jsonl | csv | tsv | parquet | datasets
+    field: str = "text"               # the JSON key / column holding the sentence (row formats)
+    split_sentences: bool = False     # split paragraph-per-line input into sentences (rule-based)
+    dataset_split: str = ""           # split of a saved datasets.DatasetDict ("" = its only split)
+
+
 @dataclass(frozen=True)
 class LanguageSpec:
     tag: str
     inputs: tuple[str, ...]           # globs as written, relative to the recipe directory
     files: tuple[str, ...] = ()       # resolved, sorted, relative to the recipe directory
+    read: ReadSpec = field(default_factory=ReadSpec)
 
 
 @dataclass(frozen=True)
@@ -61,14 +75,28 @@ class VocabSpec:
     pad: bool = True                  # reserve id 0 for <pad>
 
 
+MIX_ORDERS: tuple[str, ...] = ("shuffled", "alternating", "blocked")
+BALANCE_UNITS: tuple[str, ...] = ("none", "sentences", "tokens")
+
+
 @dataclass(frozen=True)
 class MixSpec:
-    order: str = "shuffled"           # shuffled
+    """Order and balance of the two languages in each split (docs/mixing.md)."""
+
+    order: str = "shuffled"           # shuffled | alternating | blocked
+    within_language: str = "shuffled"  # alternating/blocked: shuffled (seeded) | input order
+    balance: str = "none"             # none | sentences | tokens: the unit of the sizes n_i
+    alpha: float = 0.0                # q_i ∝ p_i^alpha; 0 = equal sizes, 1 = as found
+    resample: str = "down"            # down (drop from larger) | up (repeat the smaller)
+    balance_splits: tuple[str, ...] = ("train",)
+
+
+SHARD_FORMATS: tuple[str, ...] = ("npy", "parquet", "npy+parquet")
 
 
 @dataclass(frozen=True)
 class ShardSpec:
-    format: str = "npy"
+    format: str = "npy"               # npy | parquet | npy+parquet (both, same sentences)
     max_tokens: int = 1_000_000       # a shard is closed after the sentence that reaches this
 
 
@@ -90,6 +118,21 @@ class SubwordSpec:
     max_sentence_bytes: int = 65536   # longer train sentences are left out of the sample (counted)
     train_threads: int = 1            # fixed, so the model does not depend on --jobs or the machine
     exact_size: bool = True           # false: sentencepiece may stop short of the size on a small corpus
+
+
+@dataclass(frozen=True)
+class HygieneSpec:
+    """Corpus hygiene steps applied after cleaning, each off by default (docs/inputs.md)."""
+
+    duplicates: str = "keep"          # keep | drop (later exact copies within a language)
+    cross_language: str = "off"       # off | keep (report only) | drop-both | keep-first
+    foreign: str = "off"              # off | report | drop: sentences that look like the other language
+    foreign_min_chars: int = 20       # shorter sentences are never judged foreign
+    foreign_margin: float = 0.1       # mean log-likelihood ratio per n-gram needed to flag
+    examples: int = 10                # examples per finding recorded in build.json
+    exclude_items: tuple[str, ...] = ()   # item files (CSV/TSV) whose sentences are excluded
+    exclude_column: str = "sentence"  # the column of the item files holding the sentence
+    exclude_from: str = "train"       # train | all: the splits the items are excluded from
 
 
 @dataclass(frozen=True)
@@ -116,6 +159,7 @@ class Recipe:
     mix: MixSpec
     shards: ShardSpec
     conditions: tuple[ConditionSpec, ...]
+    hygiene: HygieneSpec = field(default_factory=HygieneSpec)
 
     @property
     def base_dir(self) -> Path:
@@ -247,7 +291,7 @@ def load_recipe(path: str | os.PathLike[str], resolve_inputs: bool = True) -> Re
         raise RecipeError(f"{path}: invalid TOML: {exc}") from None
 
     r = _Reader(path, text, data)
-    top_allowed = {"build", "languages", "clean", "splits", "vocab", "mix", "shards", "condition"}
+    top_allowed = {"build", "languages", "clean", "splits", "vocab", "mix", "shards", "condition", "hygiene"}
     for key in data:
         if key not in top_allowed:
             raise r.fail(key, 0, "", f"unknown table (known tables: {', '.join(sorted(top_allowed))})")
@@ -274,15 +318,32 @@ def load_recipe(path: str | os.PathLike[str], resolve_inputs: bool = True) -> Re
         raise r.fail("splits", 0, "train", "must be > 0: the vocabulary is counted on train")
 
     vocab = _vocab_spec(r, "vocab", 0, r.table("vocab", _VOCAB_KEYS), VocabSpec())
-    mix = MixSpec(**r.table("mix", {"order": ("shuffled",)}))
-    shards = ShardSpec(**r.table("shards", {"format": ("npy",), "max_tokens": int}))
+    mix = MixSpec(**r.table("mix", {"order": MIX_ORDERS, "within_language": ("shuffled", "input"),
+                                    "balance": BALANCE_UNITS, "alpha": float, "resample": ("down", "up"),
+                                    "balance_splits": "strings"}))
+    if mix.order == "shuffled" and mix.within_language != "shuffled":
+        raise r.fail("mix", 0, "within_language", 'applies to order = "alternating" or "blocked" only')
+    if not 0.0 <= mix.alpha <= 1.0:
+        raise r.fail("mix", 0, "alpha", f"must be between 0 and 1, got {mix.alpha}")
+    for split in mix.balance_splits:
+        if split not in SPLITS:
+            raise r.fail("mix", 0, "balance_splits", f"unknown split {split!r} (splits: {', '.join(SPLITS)})")
+    shards = ShardSpec(**r.table("shards", {"format": SHARD_FORMATS, "max_tokens": int}))
     if shards.max_tokens <= 0:
         raise r.fail("shards", 0, "max_tokens", "must be > 0")
+
+    hygiene = HygieneSpec(**r.table("hygiene", {
+        "duplicates": ("keep", "drop"), "cross_language": ("off", "keep", "drop-both", "keep-first"),
+        "foreign": ("off", "report", "drop"), "foreign_min_chars": int, "foreign_margin": float,
+        "examples": int, "exclude_items": "strings", "exclude_column": str, "exclude_from": ("train", "all")}))
+    for key in ("foreign_min_chars", "examples"):
+        if getattr(hygiene, key) < 0:
+            raise r.fail("hygiene", 0, key, "must be >= 0")
 
     conditions = _read_conditions(r, path, vocab)
     recipe = Recipe(path=path, name=build["name"], seed=build["seed"], languages=languages,
                     clean=clean, splits=splits, vocab=vocab, mix=mix, shards=shards,
-                    conditions=conditions)
+                    conditions=conditions, hygiene=hygiene)
     if resolve_inputs:
         recipe = resolve_recipe_inputs(recipe)
     return recipe
@@ -306,10 +367,15 @@ def _read_languages(r: _Reader, path: str) -> tuple[LanguageSpec, ...]:
         table = f"languages.{tag}"
         if not is_valid_language_tag(tag):
             raise r.fail(table, 0, "", f"'{tag}' is not a valid BCP 47 language tag")
-        values = r.table(table, {"inputs": "strings"}, value=spec, required=("inputs",))
-        if not values["inputs"]:
+        values = r.table(table, {"inputs": "strings", "format": INPUT_FORMATS, "field": str,
+                                 "split_sentences": bool, "dataset_split": str},
+                         value=spec, required=("inputs",))
+        inputs = values.pop("inputs")
+        if not inputs:
             raise r.fail(table, 0, "inputs", "must list at least one file or glob")
-        out.append(LanguageSpec(tag=tag, inputs=values["inputs"]))
+        if "field" in values and not values["field"]:
+            raise r.fail(table, 0, "field", "must not be empty")
+        out.append(LanguageSpec(tag=tag, inputs=inputs, read=ReadSpec(**values)))
     if len(out) != 2:
         raise RecipeError(f"{path}: [languages] must define exactly two languages, found {len(out)}")
     if out[0].tag.lower() == out[1].tag.lower():
@@ -395,6 +461,11 @@ def _subword_spec(r: _Reader, index: int, values: dict[str, Any], units: str,
     return spec
 
 
+def is_saved_dataset(path: str) -> bool:
+    """A directory written by ``datasets`` ``save_to_disk`` (a Dataset or a DatasetDict)."""
+    return any(os.path.exists(os.path.join(path, name)) for name in ("state.json", "dataset_dict.json"))
+
+
 def resolve_recipe_inputs(recipe: Recipe) -> Recipe:
     """Expand each language's globs into a sorted file list; a glob matching nothing is an error."""
     base = recipe.base_dir
@@ -407,14 +478,16 @@ def resolve_recipe_inputs(recipe: Recipe) -> Recipe:
                 matches = sorted(glob.glob(absolute, recursive=True))
             except (OSError, RecursionError) as exc:
                 raise InputError(f"{recipe.path}: [languages.{lang.tag}] inputs: cannot expand {pattern!r}: {exc}") from None
-            matches = [m for m in matches if not os.path.isdir(m)]
+            # A directory is an input only as a saved `datasets` dataset.
+            matches = [m for m in matches if not os.path.isdir(m) or lang.read.format in ("auto", "datasets")
+                       and is_saved_dataset(m)]
             if not matches:
                 raise InputError(f"{recipe.path}: [languages.{lang.tag}] inputs: {pattern!r} matches no file")
             for m in matches:
                 rel = os.path.relpath(m, base)
                 if rel not in files:
                     files.append(rel)
-        languages.append(LanguageSpec(tag=lang.tag, inputs=lang.inputs, files=tuple(files)))
+        languages.append(LanguageSpec(tag=lang.tag, inputs=lang.inputs, files=tuple(files), read=lang.read))
     return Recipe(**{**{f: getattr(recipe, f) for f in recipe.__dataclass_fields__}, "languages": tuple(languages)})
 
 
@@ -427,9 +500,12 @@ name = "my-study"        # names the build; recorded in build.json
 seed = 1                 # the only source of randomness (splits, mixing)
 
 # Exactly two languages; each key is a BCP 47 tag. Inputs are globs of UTF-8 text files,
-# one sentence per line (.txt, or compressed .gz / .bz2 / .xz / .zst).
+# one sentence per line (.txt, or compressed .gz / .bz2 / .xz / .zst), or of row formats.
 [languages.en]
 inputs = ["corpus/en/*.txt"]
+# format = "auto"        # auto (by extension) | text | jsonl | csv | tsv | parquet | datasets
+# field = "text"         # the JSON key / column with the sentence (row formats)
+# split_sentences = false  # true: split paragraph-per-line text into sentences (rule-based)
 
 [languages.de]
 inputs = ["corpus/de/*.txt"]
@@ -454,11 +530,22 @@ unknown = "shared"       # shared: one <unk>; per-language: <unk:en>, <unk:de>
 eos = "shared"           # shared | per-language | none: the end-of-sentence token after each sentence
 pad = true               # reserve id 0 for <pad>
 
+[hygiene]                # each step is optional and counted in build.json
+duplicates = "keep"      # keep | drop: later exact copies within a language
+cross_language = "off"   # off | keep (report) | drop-both | keep-first: same sentence in both corpora
+foreign = "off"          # off | report | drop: sentences that look like the other language
+# exclude_items = ["items.tsv"]   # stimulus files (CSV/TSV); their sentences are kept out of training
+# exclude_column = "sentence"
+# exclude_from = "train"          # train | all
+
 [mix]
-order = "shuffled"       # the two languages are shuffled together (seeded), same order in every condition
+order = "shuffled"       # shuffled | alternating | blocked; the same order in every condition
+balance = "none"         # none | sentences | tokens: resample the languages (train split by default)
+alpha = 0.0              # with balance: target share q_i ∝ p_i^alpha (0 = equal, 1 = as found)
+resample = "down"        # down: drop from the larger language | up: repeat the smaller one
 
 [shards]
-format = "npy"
+format = "npy"           # npy | parquet | npy+parquet
 max_tokens = 1000000     # tokens per shard file (a shard ends after the sentence that reaches it)
 
 # One [[condition]] per vocabulary-sharing condition, all built from the same corpus.
@@ -500,9 +587,13 @@ def recipe_from_manifest(manifest: dict[str, Any], out: str | os.PathLike[str]) 
                                         "vocab": VocabSpec(**c["vocab"]),
                                         "subword": SubwordSpec(**c["subword"]) if c.get("subword") else None})
                        for c in data["conditions"])
-    languages = tuple(LanguageSpec(tag=l["tag"], inputs=tuple(l["inputs"]), files=tuple(l["files"]))
+    languages = tuple(LanguageSpec(tag=l["tag"], inputs=tuple(l["inputs"]), files=tuple(l["files"]),
+                                   read=ReadSpec(**l.get("read", {})))
                       for l in data["languages"])
     return Recipe(path=recipe_path, name=data["name"], seed=data["seed"], languages=languages,
                   clean=CleanSpec(**data["clean"]), splits=SplitSpec(**data["splits"]),
-                  vocab=VocabSpec(**data["vocab"]), mix=MixSpec(**data["mix"]),
-                  shards=ShardSpec(**data["shards"]), conditions=conditions)
+                  vocab=VocabSpec(**data["vocab"]),
+                  mix=MixSpec(**{**data["mix"], "balance_splits": tuple(data["mix"].get("balance_splits", ("train",)))}),
+                  shards=ShardSpec(**data["shards"]), conditions=conditions,
+                  hygiene=HygieneSpec(**{**data.get("hygiene", {}),
+                                         "exclude_items": tuple(data.get("hygiene", {}).get("exclude_items", ()))}))

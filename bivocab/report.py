@@ -31,7 +31,13 @@ def plan_text(recipe: Recipe, inputs: list[tuple[str, str, int, int]]) -> str:
                f"tokens per sentence {c.min_tokens}..{c.max_tokens or 'any'}, max chars {c.max_chars or 'any'}")
     s = recipe.splits
     out.append(f"splits: train {s.train:g} / valid {s.valid:g} / test {s.test:g} (by seeded hash of the sentence)")
-    out.append(f"mixing: {recipe.mix.order}; shards: {recipe.shards.format}, {recipe.shards.max_tokens:,} tokens each")
+    m = recipe.mix
+    balance = (f", balance {m.balance} (alpha {m.alpha:g}, {m.resample}sampling, splits {'/'.join(m.balance_splits)})"
+               if m.balance != "none" else "")
+    out.append(f"mixing: {m.order}{balance}; shards: {recipe.shards.format}, {recipe.shards.max_tokens:,} tokens each")
+    h = recipe.hygiene
+    out.append(f"hygiene: duplicates {h.duplicates}, cross-language {h.cross_language}, foreign {h.foreign}, "
+               f"item files excluded {len(h.exclude_items)}")
     out.append("conditions:")
     for cond in recipe.conditions:
         v = cond.vocab

@@ -450,8 +450,8 @@ def _subword_spec(r: _Reader, index: int, values: dict[str, Any], units: str,
                      "applies to the joint model of a shared condition (separate models train on one language each)")
     if spec.sample_sentences < 0:
         raise r.fail("condition", index, "sample_sentences", "must be >= 0 (0 = the whole train split)")
-    if not spec.sample_alpha > 0 or spec.sample_alpha > 1:
-        raise r.fail("condition", index, "sample_alpha", "must be in (0, 1]")
+    if not 0 <= spec.sample_alpha <= 1:
+        raise r.fail("condition", index, "sample_alpha", "must be between 0 (equal shares) and 1 (shares as available)")
     if not 0.9 <= spec.character_coverage <= 1.0:
         raise r.fail("condition", index, "character_coverage", "must be between 0.9 and 1.0")
     if spec.max_sentence_bytes < 16:

@@ -20,6 +20,7 @@ import sentencepiece as spm
 from sentencepiece import sentencepiece_model_pb2 as model_pb2
 
 from .errors import BivocabError
+from .mix import smoothed_probabilities
 from .recipe import SPLITS, CleanSpec, ConditionSpec, Recipe, SubwordSpec
 from .scan import ragged_gather
 from .segment import NUMBER, PUNCT, SPECIAL, SYMBOL, WORD, segment
@@ -36,21 +37,6 @@ _FOREIGN = "\x1f"
 
 
 # --- sampling ------------------------------------------------------------------------------------
-
-def smoothed_shares(available: Sequence[int], alpha: float) -> np.ndarray:
-    """Exponent-smoothed language shares q_i = p_i^alpha / sum_j p_j^alpha, p_i = n_i / sum n
-    (Lample & Conneau 2019; Conneau et al. 2020).  alpha = 1 keeps the shares as available.
-
-    >>> smoothed_shares([900, 100], 0.5).round(6).tolist()
-    [0.75, 0.25]
-    """
-    n = np.asarray(available, dtype=np.float64)
-    if n.sum() <= 0:
-        raise ValueError("no sentences to sample from")
-    q = (n / n.sum()) ** alpha
-    q[n == 0] = 0.0
-    return q / q.sum()
-
 
 def allocate(total: int, shares: Sequence[float]) -> list[int]:
     """Split ``total`` into integers proportional to ``shares`` (largest remainder; ties go to
@@ -336,7 +322,7 @@ def training_sample(condition: ConditionSpec, recipe: Recipe, texts: Sequence[Se
     available = [len(e) for e in eligible]
     if is_joint(condition):
         total = spec.sample_sentences * len(available) if spec.sample_sentences else sum(available)
-        shares = smoothed_shares(available, spec.sample_alpha)
+        shares = smoothed_probabilities(available, spec.sample_alpha)
         counts = allocate(total, shares)
         for tag, share in zip(recipe.tags, shares.tolist()):
             record[tag]["share"] = share

@@ -22,9 +22,9 @@ from bivocab.corpus import iter_sentences
 from bivocab.errors import BivocabError, RecipeError
 from bivocab.recipe import recipe_from_manifest
 from bivocab.shards import open_shards
+from bivocab.mix import smoothed_probabilities
 from bivocab.subword import (allocate, count_word_pieces, draw_rows, export_model, merge_pieces,
-                             pieces_per_word, smoothed_shares, subword_statistics, train_model,
-                             word_spans)
+                             pieces_per_word, subword_statistics, train_model, word_spans)
 
 REPO = Path(__file__).resolve().parent.parent
 Piece = model_pb2.ModelProto.SentencePiece
@@ -314,17 +314,17 @@ def test_vocabulary_size_identities_hold(built):
 def test_exponent_smoothed_shares_match_a_worked_example():
     # Lample & Conneau (2019), q_i = p_i^alpha / sum_j p_j^alpha, alpha = 0.5 (value from memory).
     # Worked by hand: p = (0.9, 0.1); sqrt(0.9) = 3 sqrt(0.1), so q = (3/4, 1/4).
-    assert smoothed_shares([900, 100], 0.5).tolist() == pytest.approx([0.75, 0.25], abs=1e-12)
+    assert smoothed_probabilities([900, 100], 0.5).tolist() == pytest.approx([0.75, 0.25], abs=1e-12)
     # Conneau et al. (2020) use alpha = 0.3 (value from memory): p = (0.8, 0.2) gives
     # q_1 = 0.8^0.3 / (0.8^0.3 + 0.2^0.3) = 0.93522 / (0.93522 + 0.61703) = 0.60250 (hand, 5 places).
-    assert smoothed_shares([8, 2], 0.3)[0] == pytest.approx(0.60250, abs=5e-5)
-    assert smoothed_shares([8, 2], 1.0).tolist() == pytest.approx([0.8, 0.2])
+    assert smoothed_probabilities([8, 2], 0.3)[0] == pytest.approx(0.60250, abs=5e-5)
+    assert smoothed_probabilities([8, 2], 1.0).tolist() == pytest.approx([0.8, 0.2])
 
 
 def test_allocation_always_adds_up_to_the_requested_total():
     assert allocate(10, [0.75, 0.25]) == [8, 2]
     assert allocate(7, [0.5, 0.5]) == [4, 3]
-    shares = smoothed_shares([1234, 99], 0.3)
+    shares = smoothed_probabilities([1234, 99], 0.3)
     assert sum(allocate(1001, shares)) == 1001
 
 
@@ -337,13 +337,13 @@ def test_smaller_samples_are_prefixes_of_larger_ones_and_upsampling_repeats_the_
     assert draw_rows(rows, 4, seed=6, lang_index=1).tolist() != big[:4].tolist()
 
 
-def test_joint_model_sample_follows_the_smoothed_shares(tmp_path):
+def test_joint_model_sample_follows_the_smoothed_probabilities(tmp_path):
     out = tmp_path / "out"
     recipe = make_project(tmp_path, RECIPE, sentences=1200, skew=0.25)
     build(recipe, out)
     sample = manifest_of(out)["conditions"]["joint-smoothed"]["subword"]["sample"]
     available = [sample[t]["train_sentences"] for t in ("en", "de")]
-    expected = allocate(800, smoothed_shares(available, 0.5))
+    expected = allocate(800, smoothed_probabilities(available, 0.5))
     assert [sample[t]["drawn"] for t in ("en", "de")] == expected
     assert expected[1] > 800 * available[1] / sum(available)   # the smaller language gains
 
@@ -407,7 +407,7 @@ def test_statistics_count_the_same_pieces_as_the_shards(built):
     ('size = 300', "applies to subword units only"),
     ('units = "unigram"\nsize_per_language = 300', "one joint model"),
     ('units = "bpe"\nsize = 300\nshare = ["Hafen"]', 'applies to units = "word" only'),
-    ('units = "unigram"\nsize = 300\nsample_alpha = 0', "must be in (0, 1]"),
+    ('units = "unigram"\nsize = 300\nsample_alpha = 1.5', "must be between 0 (equal shares) and 1"),
     ('units = "wordpiece"\nsize = 300', "expected one of"),
 ])
 def test_bad_subword_keys_are_one_line_errors_naming_file_and_line(tmp_path, extra, problem):

@@ -18,9 +18,10 @@ from sentencepiece import sentencepiece_model_pb2 as model_pb2
 from tokenizers import Tokenizer
 
 from bivocab import build, load_recipe
+from bivocab.clean import normalise_text
 from bivocab.corpus import iter_sentences
 from bivocab.errors import BivocabError, RecipeError
-from bivocab.recipe import recipe_from_manifest
+from bivocab.recipe import CleanSpec, recipe_from_manifest
 from bivocab.shards import open_shards
 from bivocab.mix import smoothed_probabilities
 from bivocab.subword import (allocate, count_word_pieces, draw_rows, export_model, merge_pieces,
@@ -204,6 +205,13 @@ def test_the_exported_model_encodes_exactly_like_the_model_sentencepiece_trained
             trained = spm.SentencePieceProcessor(model_proto=models[li].SerializeToString())
             for line in texts[tag] + texts[recipe.tags[1 - li]][:200]:
                 assert exported.encode(line, out_type=str) == trained.encode(line, out_type=str)
+
+
+@pytest.mark.parametrize("normal_form", ["NFC", "NFKC", "none"])
+def test_cleaning_never_leaves_the_placeholder_mark_so_foreign_pieces_cannot_match(normal_form):
+    # The other language's pieces are named U+001F tag U+001F piece inside a model file; they are
+    # unreachable only because no normalised sentence can hold U+001F.
+    assert "\x1f" not in normalise_text("Hafen\x1fde\x1f\u2581Kai", CleanSpec(normal_form=normal_form))
 
 
 def test_model_files_embed_no_input_path_or_machine_dependent_setting(built):

@@ -459,3 +459,17 @@ def test_long_train_sentences_are_left_out_of_the_sample_and_counted(tmp_path):
     too_long = sum(len(t.encode("utf-8")) > 60 for t in texts)
     assert sample["en"]["too_long"] == too_long > 0
     assert sample["en"]["drawn"] == sample["en"]["train_sentences"] - too_long
+
+
+def test_every_piece_but_a_bare_boundary_belongs_to_exactly_one_word(built):
+    sentences = sentences_by_position(built, "test").values()
+    for name, entry in subword_conditions(built).items():
+        models = {t: spm.SentencePieceProcessor(model_file=str(built / p)) for t, p in entry["models"].items()}
+        for sentence in sentences:
+            model = models[sentence.lang]
+            encoded = model.encode(sentence.text, out_type="proto").pieces
+            spans = [(p.begin, p.end, model.is_byte(p.id)) for p in encoded]
+            per_word = pieces_per_word(word_spans(sentence.text), spans)
+            bare = sum(1 for p in encoded if p.piece == "\u2581")
+            assert per_word.sum() + bare == len(encoded), (name, sentence.text)
+            assert (per_word >= 1).all()

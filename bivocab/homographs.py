@@ -85,20 +85,24 @@ def near_homographs(only_a: set[str], only_b: set[str],
     >>> near_homographs({"haus", "hand"}, {"Haus", "hund", "band"})
     [('hand', 'band'), ('hand', 'hund')]
     """
-    index: dict[str, set[str]] = defaultdict(set)
-    for b in only_b:
-        if len(b) >= min_length:
-            for key in _deletion_keys(b):
-                index[key].add(b)
+    a_words = [w for w in only_a if len(w) >= min_length]
+    b_words = [w for w in only_b if len(w) >= min_length]
+    # Index the smaller side, look the larger one up: the index is the costly part.
+    flipped = len(a_words) > len(b_words)
+    small, large = (b_words, a_words) if flipped else (a_words, b_words)
+    index: dict[str, list[str]] = {}
+    for word in small:
+        for key in set(_deletion_keys(word)):
+            index.setdefault(key, []).append(word)
     pairs = set()
-    for a in only_a:
-        if len(a) < min_length:
-            continue
-        folded = fold_spelling(a)
-        for key in set(_deletion_keys(a)):
-            for b in index.get(key, ()):
-                if Levenshtein.distance(a, b) == 1 and fold_spelling(b) != folded:
-                    pairs.add((a, b))
+    for word in large:
+        folded = None
+        for key in set(_deletion_keys(word)):
+            for other in index.get(key, ()):
+                if Levenshtein.distance(word, other) == 1:
+                    folded = fold_spelling(word) if folded is None else folded
+                    if fold_spelling(other) != folded:
+                        pairs.add((other, word) if not flipped else (word, other))
     return sorted(pairs)
 
 

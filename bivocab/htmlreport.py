@@ -13,7 +13,7 @@ from typing import Any, Callable, Sequence
 import numpy as np
 
 from .audit import BAND_BASE, TRAIN, AuditResult, HomographPair
-from .recipe import SPLITS
+from .recipe import POLICIES, SPLITS
 from .segment import TOKEN_CLASSES, WORD
 
 COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9")  # Okabe-Ito: colour-blind safe
@@ -64,8 +64,11 @@ def _rank_frequency(result: AuditResult) -> Figure:
         ax = fig.subplots()
         for colour, tag in zip(COLOURS, result.tags):
             freq = result.rank_frequency[tag]
-            ranks = np.arange(1, len(freq) + 1)
-            ax.loglog(ranks, freq, color=colour, lw=1.6, label=f"{tag} (observed)")
+            if not len(freq):
+                continue
+            # Log-spaced ranks draw the same curve as all of them, at a fraction of the cost.
+            ranks = np.unique(np.round(np.geomspace(1, len(freq), 2000)).astype(np.int64))
+            ax.loglog(ranks, freq[ranks - 1], color=colour, lw=1.6, label=f"{tag} (observed)")
             z = s[tag]["zipf"]
             if z:
                 r = np.geomspace(1, z["max_rank"], 50)
@@ -134,7 +137,8 @@ def _bands(result: AuditResult) -> Figure:
             values = [100 * (b["shared_token_share"] or 0) for b in bands[tag]]
             x = np.arange(len(values)) + (i - (len(result.tags) - 1) / 2) * width
             ax.bar(x, values, width, color=colour, label=tag)
-        ticks = [f"{BAND_BASE ** k + 1 if k else 1:,}–{BAND_BASE ** (k + 1):,}" for k in range(n)]
+        ticks = [f"{BAND_BASE ** k + 1 if k else 1:,}–{BAND_BASE ** (k + 1):,}" for k in range(n - 1)]
+        ticks.append(f"≥ {BAND_BASE ** (n - 1) + 1 if n > 1 else 1:,}")
         ax.set_xticks(np.arange(n), ticks, rotation=20)
         ax.set_xlabel("frequency rank band")
         ax.set_ylabel("tokens that are shared spellings (%)")
@@ -155,7 +159,8 @@ def _bands(result: AuditResult) -> Figure:
 def _scatter(result: AuditResult) -> Figure:
     a, b = result.tags
     rows = result.homographs
-    label_colour = {"same-meaning": COLOURS[2], "false-friend": COLOURS[1], "unknown": "#999999"}
+    # Unknown first, so that the labelled points are drawn on top of it.
+    label_colour = {"unknown": "#999999", "same-meaning": COLOURS[2], "false-friend": COLOURS[1]}
 
     def draw(fig: Any) -> None:
         ax = fig.subplots()
@@ -173,10 +178,12 @@ def _scatter(result: AuditResult) -> Figure:
             ax.plot([lo, hi], [lo, hi], color="black", lw=0.8, ls=":", label="equal frequency")
             ax.set_xscale("log")
             ax.set_yscale("log")
-            for r in [r for r in rows if r.cls == WORD][:12]:
+            labelled = [r for r in rows if r.translation in ("same-meaning", "false-friend")][:8]
+            named = labelled + [r for r in rows if r.cls == WORD and r not in labelled][:12 - len(labelled)]
+            for r in named:
                 ax.annotate(r.surface_a, (r.per_million_a, r.per_million_b), fontsize=8,
                             xytext=(3, 3), textcoords="offset points")
-            ax.legend(frameon=False, loc="upper left")
+            ax.legend(frameon=False, loc="upper left", bbox_to_anchor=(1.01, 1.0))
         else:
             ax.text(0.5, 0.5, "no homographs", ha="center", va="center", transform=ax.transAxes)
         ax.set_xlabel(f"frequency in {a} (per million words, log scale)")
@@ -197,6 +204,8 @@ def _scatter(result: AuditResult) -> Figure:
 def _conditions(result: AuditResult) -> Figure:
     conds = result.summary["conditions"]
     names = list(result.conditions)
+    any_held_out = any(conds[c]["coverage"][t][sp]["tokens"] for c in names for t in result.tags
+                       for sp in SPLITS if sp != TRAIN)
 
     def draw(fig: Any) -> None:
         left, right = fig.subplots(1, 2, width_ratios=(1, 1.6))
@@ -206,7 +215,7 @@ def _conditions(result: AuditResult) -> Figure:
         left.set_xticks(x, names, rotation=20)
         left.set_ylabel("entries")
         left.set_title("Vocabulary size")
-        left.legend(frameon=False)
+        left.legend(frameon=False, loc="upper center", bbox_to_anchor=(0.5, -0.28), ncols=2)
         series = [(t, sp) for t in result.tags for sp in SPLITS if sp != TRAIN]
         width = 0.8 / len(series)
         for i, (tag, split) in enumerate(series):
@@ -217,7 +226,10 @@ def _conditions(result: AuditResult) -> Figure:
         right.set_xticks(x, names, rotation=20)
         right.set_ylabel("OOV tokens (%)")
         right.set_title("Out-of-vocabulary share")
-        right.legend(frameon=False, fontsize=8)
+        right.legend(frameon=False, fontsize=8, loc="upper center", bbox_to_anchor=(0.5, -0.28), ncols=len(series))
+        if not any_held_out:
+            right.set_ylim(0, 1)
+            right.text(0.5, 0.5, "no valid or test text", ha="center", va="center", transform=right.transAxes)
         for ax in (left, right):
             ax.grid(True, axis="y", alpha=0.3)
 
@@ -365,9 +377,14 @@ def render_report(result: AuditResult, top: int = 25) -> str:
     out.append(_figure_html(figs["bands"]))
     out.append("<h2>Vocabulary size of each policy (no cap, min_count 1)</h2>")
     union = overlap["union_types"]["total"]
+    tagged_classes = [c for c, choice in POLICIES["word-tagged"].items() if choice == "tagged"]
+    tagged = {t: sum(langs[t]["by_class"][c]["types"] for c in tagged_classes) for t in tags}
+    other_union = sum(overlap["union_types"][c] for c in TOKEN_CLASSES if c not in tagged_classes)
     out.append(_table(["policy", "entries", "identity"], [
         ["shared", f"{sizes['shared']:,}", f"|A∪B| + specials = {union:,} + {sizes['specials']}"],
-        ["word-tagged", f"{sizes['word-tagged']:,}", "|A words| + |B words| + |A other ∪ B other| + specials"],
+        ["word-tagged", f"{sizes['word-tagged']:,}",
+         f"|A tagged| + |B tagged| + |A other ∪ B other| + specials = {tagged[a]:,} + {tagged[b]:,} + "
+         f"{other_union:,} + {sizes['specials']} (tagged: {', '.join(tagged_classes)})"],
         ["fully-tagged", f"{sizes['fully-tagged']:,}",
          f"|A| + |B| + specials = {sizes[f'types_{a}']:,} + {sizes[f'types_{b}']:,} + {sizes['specials']}"],
     ], "Uncapped vocabulary size per policy"))

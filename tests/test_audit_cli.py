@@ -108,3 +108,18 @@ def test_a_second_audit_replaces_the_first_as_a_whole(build_dir):
     assert run(build_dir).exit_code == 0
     assert (build_dir / "audit" / "summary.json").read_text(encoding="utf-8") == first
     assert not list(build_dir.glob(".audit.*"))
+
+
+def test_incomplete_build_is_refused(tmp_path):
+    out = make_build(tmp_path, lines=60)
+    (out / ".bivocab-incomplete").write_text("kellhaven-audit\n", encoding="utf-8")
+    result = run(out)
+    assert result.exit_code == 2 and "incomplete" in result.output
+
+
+def test_audit_leaves_every_build_file_unchanged(build_dir):
+    from bivocab.manifest import sha256_file
+
+    assert run(build_dir).exit_code == 0
+    manifest = json.loads((build_dir / "build.json").read_text(encoding="utf-8"))
+    assert all(sha256_file(build_dir / f["path"]) == f["sha256"] for f in manifest["files"])

@@ -7,7 +7,7 @@ so that each one can be checked on its own.  Written to ``DIR/audit/`` by :func:
 
 from __future__ import annotations
 
-import contextlib
+import csv
 import math
 import os
 import shutil
@@ -26,7 +26,7 @@ from .build import INCOMPLETE
 from .manifest import MANIFEST, build_lock, canonical_json, read_manifest, sha256_file
 from .recipe import POLICIES, SPLITS, ConditionSpec, Recipe, VocabSpec, recipe_from_manifest
 from .segment import SPECIAL, TOKEN_CLASSES, WORD, segment
-from .vocab import SHARED, entry_key, sharing_rule, special_tokens
+from .vocab import entry_key, sharing_rule, special_tokens, tsv_text
 
 AUDIT_DIR = "audit"
 TRAIN = "train"
@@ -59,25 +59,27 @@ class LanguageTypes:
 
 
 def _tsv_rows(path: Path, header: Sequence[str]) -> Iterable[tuple[int, list[str]]]:
-    """Rows of a build TSV after checking its leading header columns (no quoting: surfaces
-    never hold tabs or newlines, and strings such as "NA" must stay strings)."""
+    """Rows of a build TSV (tab-separated with CSV quoting, as bivocab.vocab.tsv_text writes it)
+    after checking its leading header columns; every field stays a string ("NA" too)."""
     try:
-        text = path.read_text(encoding="utf-8")
+        handle = open(path, encoding="utf-8", newline="")
     except FileNotFoundError:
         raise InputError(f"{path}: missing from the build directory") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"{path}: cannot read: {exc}") from None
-    lines = text.split("\n")
-    if lines and lines[-1] == "":
-        lines.pop()
-    if not lines or lines[0].split("\t")[:len(header)] != list(header):
-        raise InputError(f"{path}:1: header must start with {' '.join(header)}")
-    width = len(lines[0].split("\t"))
-    for number, line in enumerate(lines[1:], start=2):
-        fields = line.split("\t")
-        if len(fields) != width:
-            raise InputError(f"{path}:{number}: expected {width} tab-separated fields, found {len(fields)}")
-        yield number, fields
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read: {exc.strerror or exc}") from None
+    with handle:
+        reader = csv.reader(handle, delimiter="\t")
+        try:
+            first = next(reader, [])
+            if first[:len(header)] != list(header):
+                raise InputError(f"{path}:1: header must start with {' '.join(header)}")
+            for fields in reader:
+                if len(fields) != len(first):
+                    raise InputError(f"{path}:{reader.line_num}: expected {len(first)} tab-separated fields, "
+                                     f"found {len(fields)}")
+                yield reader.line_num, fields
+        except (UnicodeDecodeError, csv.Error) as exc:
+            raise InputError(f"{path}:{reader.line_num}: cannot read: {exc}") from None
 
 
 def read_types(path: Path, tag: str) -> LanguageTypes:
@@ -643,12 +645,12 @@ def pairs_tsv(result: AuditResult, rows: Sequence[HomographPair], exact: bool) -
     header = pair_columns(tags, result.conditions, result.lexicon_tags, result.has_translations)
     if exact:
         header = ["surface"] + [h for h in header if h not in ("kind", f"surface_{tags[0]}", f"surface_{tags[1]}")]
-    lines = ["\t".join(header)]
+    records = []
     for row in rows:
         record = pair_record(row, tags, result.conditions)
         record["surface"] = row.surface_a
-        lines.append("\t".join(_cell(record[h]) for h in header))
-    return "\n".join(lines) + "\n"
+        records.append([_cell(record[h]) for h in header])
+    return tsv_text(header, records)
 
 
 AUDIT_FILES = ("summary.json", "homographs.tsv", "variants.tsv", "near-homographs.tsv", "report.html")

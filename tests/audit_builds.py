@@ -17,7 +17,7 @@ EN_ONLY = ["the", "harbour", "boat", "net", "tide", "rope", "anchor", "quay", "k
            "house", "ship", "lamp", "fish", "crane"]
 DE_ONLY = ["der", "Hafen", "Boot", "Netz", "Flut", "Seil", "Anker", "Kai", "Kind", "café", "Über", "Gift",
            "Haus", "Schiff", "Lampe", "fisch", "Kran", "über", "Straße"]
-PUNCT = [".", ",", "!", "?", "«", "»"]
+PUNCT = [".", ",", "!", "?", "«", "»", "\""]
 SYMBOLS = ["€", "+", "§"]
 NUMBERS = ["7", "12", "1,50", "3.20", "1990"]
 

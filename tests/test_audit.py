@@ -31,23 +31,40 @@ def plain_class(token: str) -> str:
     return {"N": "number", "P": "punct"}.get(category[0], "symbol")
 
 
-class Plain:
-    """Counts of the build's text computed without bivocab."""
+def tokenizers_splitter(out: Path, tag: str):
+    """Tokens of a raw line by the build's exported tokenizer.<tag>.json, run by the tokenizers
+    library (its normalizer and pre-tokenizer), not by bivocab's own segmentation."""
+    from tokenizers import Tokenizer
 
-    def __init__(self, out: Path):
+    tokenizer = Tokenizer.from_file(str(out / "shared" / f"tokenizer.{tag}.json"))
+
+    def split(line: str) -> list[str]:
+        return [piece for piece, _ in tokenizer.pre_tokenizer.pre_tokenize_str(tokenizer.normalizer.normalize_str(line))]
+
+    return split
+
+
+class Plain:
+    """Counts of the build's text computed without bivocab: raw input lines, the split of each
+    line from the provenance shards, and a tokenizer given by the test."""
+
+    def __init__(self, out: Path, splitter):
         manifest = json.loads((out / "build.json").read_text(encoding="utf-8"))
         self.manifest = manifest
         split_of = split_of_lines(out)
-        base = out.parent
+        base = (out / manifest["recipe_file"]).resolve().parent
         self.counts = {t: {s: Counter() for s in SPLITS} for t in TAGS}
         self.sentences = {t: Counter() for t in TAGS}
         self.train_stream = {t: [] for t in TAGS}
         for index, entry in enumerate(manifest["inputs"]):
             tag = entry["language"]
+            split_line = splitter(out, tag)
             lines = (base / entry["path"]).read_text(encoding="utf-8").splitlines()
             for number, line in enumerate(lines, start=1):
-                split = split_of[(index, number)]
-                tokens = line.split()
+                split = split_of.get((index, number))
+                if split is None:  # dropped by cleaning (an empty line)
+                    continue
+                tokens = split_line(line)
                 self.sentences[tag][split] += 1
                 self.counts[tag][split].update(tokens)
                 if split == "train":
@@ -57,23 +74,49 @@ class Plain:
 
 
 @pytest.fixture(scope="module")
-def build_dir(tmp_path_factory: pytest.TempPathFactory) -> Path:
+def generated_dir(tmp_path_factory: pytest.TempPathFactory) -> Path:
     return make_build(tmp_path_factory.mktemp("kellhaven"))
 
 
-@pytest.fixture(scope="module")
-def plain(build_dir: Path) -> Plain:
-    return Plain(build_dir)
+class Case:
+    def __init__(self, out: Path, splitter):
+        self.out = out
+        self.plain = Plain(out, splitter)
+        self.result = audit_build(out)
+
+
+@pytest.fixture(scope="module", params=["generated", "sample"])
+def case(request) -> Case:
+    """The generated build (tokens counted with str.split) and the bundled sample corpus
+    (tokens counted by the tokenizers library)."""
+    if request.param == "generated":
+        return Case(request.getfixturevalue("generated_dir"), lambda out, tag: str.split)
+    return Case(request.getfixturevalue("sample_build"), tokenizers_splitter)
 
 
 @pytest.fixture(scope="module")
-def result(build_dir: Path):
-    return audit_build(build_dir)
+def generated(generated_dir: Path) -> Case:
+    return Case(generated_dir, lambda out, tag: str.split)
 
 
-@pytest.fixture(scope="module")
-def summary(result) -> dict:
-    return result.summary
+@pytest.fixture
+def summary(case) -> dict:
+    return case.result.summary
+
+
+@pytest.fixture
+def plain(case) -> Plain:
+    return case.plain
+
+
+@pytest.fixture
+def result(case):
+    return case.result
+
+
+@pytest.fixture
+def build_dir(case) -> Path:
+    return case.out
 
 
 @pytest.mark.parametrize("tag", TAGS)
@@ -207,27 +250,29 @@ def _plain_is_shared(condition: dict, surface: str) -> bool:
     return condition["classes"][plain_class(surface)] == "shared"
 
 
-@pytest.mark.parametrize("name", ["shared", "word-tagged", "fully-tagged", "capped", "custom"])
-def test_oov_share_matches_vocab_tsv_and_the_build_stats(summary, plain, build_dir, name):
-    vocab = pd.read_csv(build_dir / name / "vocab.tsv", sep="\t", quoting=3, keep_default_na=False, dtype=str)
-    entries = set(zip(vocab.loc[vocab["class"] != "special", "lang"], vocab.loc[vocab["class"] != "special", "surface"]))
-    condition = next(c for c in plain.manifest["recipe"]["conditions"] if c["name"] == name)
-    got = summary["conditions"][name]["coverage"]
-    for tag in TAGS:
-        for split in SPLITS:
-            counts = plain.counts[tag][split]
-            oov = Counter({t: c for t, c in counts.items()
-                           if (("*" if _plain_is_shared(condition, t) else tag), t) not in entries})
-            cell = got[tag][split]
-            assert cell["tokens"] == sum(counts.values())
-            assert cell["oov_tokens"] == sum(oov.values())
-            assert cell["oov_tokens"] == plain.manifest["conditions"][name]["stats"][split]["oov"][tag]
-            if split != "train":
-                top = sorted(oov.items(), key=lambda sc: (-sc[1], sc[0]))[:20]
-                assert [(o["surface"], o["count"]) for o in cell["top_oov"]] == top
+def test_oov_share_matches_vocab_tsv_and_the_build_stats(summary, plain, build_dir):
+    for name in summary["conditions"]:
+        vocab = pd.read_csv(build_dir / name / "vocab.tsv", sep="\t", keep_default_na=False, dtype=str)
+        words = vocab[vocab["class"] != "special"]
+        entries = set(zip(words["lang"], words["surface"]))
+        condition = next(c for c in plain.manifest["recipe"]["conditions"] if c["name"] == name)
+        got = summary["conditions"][name]["coverage"]
+        for tag in TAGS:
+            for split in SPLITS:
+                counts = plain.counts[tag][split]
+                oov = Counter({t: c for t, c in counts.items()
+                               if (("*" if _plain_is_shared(condition, t) else tag), t) not in entries})
+                cell = got[tag][split]
+                assert cell["tokens"] == sum(counts.values())
+                assert cell["oov_tokens"] == sum(oov.values())
+                assert cell["oov_tokens"] == plain.manifest["conditions"][name]["stats"][split]["oov"][tag]
+                if split != "train":
+                    top = sorted(oov.items(), key=lambda sc: (-sc[1], sc[0]))[:20]
+                    assert [(o["surface"], o["count"]) for o in cell["top_oov"]] == top
 
 
-def test_capped_condition_has_oov_tokens_in_train(summary):
+def test_capped_condition_has_oov_tokens_in_train(generated):
+    summary = generated.result.summary
     assert summary["conditions"]["capped"]["size"] == 60
     assert summary["conditions"]["capped"]["coverage"]["en"]["train"]["oov_share"] > 0
 
@@ -237,7 +282,8 @@ def test_homographs_are_the_spellings_of_both_training_texts(result, plain):
     assert all(r.kind == "exact" and r.surface_a == r.surface_b for r in result.homographs)
 
 
-def test_homograph_frequencies_are_per_million_words_with_zipf_values(result, plain):
+def test_homograph_frequencies_are_per_million_words_with_zipf_values(generated):
+    result, plain = generated.result, generated.plain
     words = {t: sum(c for s, c in plain.train[t].items() if plain_class(s) == "word") for t in TAGS}
     row = next(r for r in result.homographs if r.surface_a == "Hotel")
     assert row.per_million_a == pytest.approx(plain.train["en"]["Hotel"] * 1e6 / words["en"])
@@ -247,7 +293,8 @@ def test_homograph_frequencies_are_per_million_words_with_zipf_values(result, pl
     assert row.log10_ratio == pytest.approx(math.log10(row.per_million_a / row.per_million_b))
 
 
-def test_homograph_vocabulary_status_follows_each_policy(result):
+def test_homograph_vocabulary_status_follows_each_policy(generated):
+    result = generated.result
     status = dict(zip(result.conditions, next(r for r in result.homographs if r.surface_a == "Hotel").in_vocab))
     assert status["shared"] == "shared"
     assert status["fully-tagged"] == "separate"
@@ -256,7 +303,8 @@ def test_homograph_vocabulary_status_follows_each_policy(result):
     assert dot["word-tagged"] == "shared" and dot["custom"] == "separate"
 
 
-def test_case_and_diacritic_variants_are_reported_separately(result, plain):
+def test_case_and_diacritic_variants_are_reported_separately(generated):
+    result, plain = generated.result, generated.plain
     pairs = {(r.surface_a, r.surface_b): r.kind for r in result.variants}
     assert pairs[("kind", "Kind")] == "case"
     assert pairs[("cafe", "café")] == "marks"
@@ -279,21 +327,31 @@ def test_near_homographs_are_all_unshared_word_pairs_at_edit_distance_one(result
     expected = {(words_a[i], words_b[j]) for i, j in zip(*np.nonzero(matrix == 1))}
     variants = {(r.surface_a, r.surface_b) for r in result.variants}
     assert {(r.surface_a, r.surface_b) for r in result.near} == expected - variants
-    assert ("fish", "fisch") in expected
 
 
-def test_homographs_tsv_has_one_row_per_homograph(build_dir, result):
-    write_audit(result)
-    frame = pd.read_csv(build_dir / "audit" / "homographs.tsv", sep="\t", quoting=3, keep_default_na=False)
+def test_planted_near_homograph_is_found(generated):
+    assert ("fish", "fisch") in {(r.surface_a, r.surface_b) for r in generated.result.near}
+
+
+@pytest.fixture(scope="module")
+def written(generated: Case) -> Path:
+    """The generated build's audit directory (the shared sample build is never written to)."""
+    return write_audit(generated.result)
+
+
+def test_homographs_tsv_has_one_row_per_homograph(written, generated):
+    result = generated.result
+    frame = pd.read_csv(written / "homographs.tsv", sep="\t", keep_default_na=False, dtype=str)
     assert len(frame) == len(result.homographs)
     assert list(frame.columns[:4]) == ["surface", "class", "count_en", "count_de"]
     assert set(frame["surface"]) == {r.surface_a for r in result.homographs}
     assert {f"in_{c}" for c in result.conditions} <= set(frame.columns)
+    assert '"' in set(frame["surface"])  # a quote character survives the CSV quoting
 
 
-def test_summary_json_holds_the_statistics(build_dir, result):
-    write_audit(result)
-    data = json.loads((build_dir / "audit" / "summary.json").read_text(encoding="utf-8"))
+def test_summary_json_holds_the_statistics(written, generated):
+    result = generated.result
+    data = json.loads((written / "summary.json").read_text(encoding="utf-8"))
     assert data["policy_sizes"] == result.summary["policy_sizes"]
     assert data["homographs"]["count"] == len(result.homographs)
     assert set(data) >= {"build", "languages", "overlap", "policy_sizes", "conditions", "homographs",

@@ -755,9 +755,9 @@ def audit_text(result: AuditResult) -> str:
         lines.append("  translation labels (exact): " + ", ".join(f"{k} {c:,}" for k, c in h["translation_labels"].items()))
     if "attested" in h:
         lines.append("  attested in word lists (exact): " + ", ".join(f"{k} {c:,}" for k, c in h["attested"].items()))
-    if result.homographs:
-        top = result.homographs[:10]
-        lines.append("  most frequent: " + ", ".join(
+    top = [r for r in result.homographs if r.cls == WORD][:10]
+    if top:
+        lines.append("  most frequent words: " + ", ".join(
             r.surface_a + (f" ({r.translation})" if r.translation else "") for r in top))
     lines += ["", f"wrote {result.out / AUDIT_DIR}/: {', '.join(AUDIT_FILES)}"]
     return "\n".join(lines)

@@ -193,9 +193,10 @@ def _scatter(result: AuditResult) -> Figure:
 
     if rows:
         above = sum(1 for r in rows if r.per_million_a > r.per_million_b)
-        top = ", ".join(f"{r.surface_a} ({r.per_million_a:,.0f} vs {r.per_million_b:,.0f})" for r in rows[:5])
+        words = [r for r in rows if r.cls == WORD][:5] or list(rows[:5])
+        top = ", ".join(f"{r.surface_a} ({r.per_million_a:,.0f} vs {r.per_million_b:,.0f})" for r in words)
         alt = (f"Log-log scatter of {len(rows):,} homographs, frequency per million words in {a} against {b}; "
-               f"{above:,} are more frequent in {a}, {len(rows) - above:,} in {b}. Most frequent: {top}.")
+               f"{above:,} are more frequent in {a}, {len(rows) - above:,} in {b}. Most frequent words: {top}.")
     else:
         alt = "No spelling occurs in both languages' training text, so the scatter is empty."
     return Figure("homograph-scatter", "Homograph frequency, language A against B", alt, _render(draw, (7.5, 5.2)))

@@ -13,7 +13,7 @@ import os
 import shutil
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Iterable, Mapping, Sequence
+from typing import Any, Callable, Iterable, Mapping, Sequence
 
 import numpy as np
 
@@ -542,8 +542,15 @@ def read_language_text(recipe: Recipe, tag: str, train_tokens: int) -> LanguageT
     return LanguageText(sentences, growth)
 
 
+Progress = Callable[[str], None]
+
+
+def _quiet(_: str) -> None:
+    pass
+
+
 def audit_build(out: str | os.PathLike[str], lexicons: Mapping[str, Path] | None = None,
-                translations: Path | None = None, top: int = 20) -> AuditResult:
+                translations: Path | None = None, top: int = 20, progress: Progress = _quiet) -> AuditResult:
     """Compute every statistic of the audit for the build in ``out`` (nothing is written)."""
     out = Path(out)
     manifest = _open_build(out)
@@ -559,6 +566,7 @@ def audit_build(out: str | os.PathLike[str], lexicons: Mapping[str, Path] | None
 
     lexicon_data = {tag: read_lexicon(tag, path, normalise) for tag, path in lexicons.items()}
     translation_data = read_translations(translations, normalise) if translations is not None else None
+    progress("checking inputs")
     _check_inputs(recipe, manifest)
 
     languages = [read_types(out / manifest["languages"][tag]["types_file"], tag) for tag in tags]
@@ -574,6 +582,7 @@ def audit_build(out: str | os.PathLike[str], lexicons: Mapping[str, Path] | None
     }
     words = []
     for lang, counts in zip(languages, train):
+        progress(f"running text {lang.tag}")
         text = read_language_text(recipe, lang.tag, sum(counts.values()))
         n_train = text.sentences[TRAIN]
         stats: dict[str, Any] = {"sentences": n_train, **class_statistics(counts, n_train)}
@@ -595,6 +604,7 @@ def audit_build(out: str | os.PathLike[str], lexicons: Mapping[str, Path] | None
         words.append(stats["by_class"][WORD]["tokens"] or stats["tokens"])
         summary["languages"][lang.tag] = stats
 
+    progress("overlap and coverage")
     overlap = overlap_statistics(tags, train, class_of)
     shared = set(train[0]) & set(train[1])
     overlap["bands"] = {tag: frequency_bands(counts, shared) for tag, counts in zip(tags, train)}
@@ -609,6 +619,7 @@ def audit_build(out: str | os.PathLike[str], lexicons: Mapping[str, Path] | None
                  "coverage": coverage(c, v, languages, top)}
         for c, v in zip(conditions, vocabs)}
 
+    progress("homographs")
     only_a, only_b = set(train[0]) - shared, set(train[1]) - shared
     common = (tags, train, words, class_of, conditions, vocabs, lexicon_data, translation_data)
     homographs = _pairs((("exact", s, s) for s in shared), *common)
@@ -691,13 +702,17 @@ def write_audit(result: AuditResult) -> Path:
 
 
 def run_audit(out: str | os.PathLike[str], lexicons: Mapping[str, Path] | None = None,
-              translations: Path | None = None, top: int = 20) -> AuditResult:
+              translations: Path | None = None, top: int = 20, progress: Progress = _quiet) -> AuditResult:
     """Audit the build in ``out`` and write ``out/audit/``, holding the build lock meanwhile."""
     out = Path(out)
     if not (out / MANIFEST).exists():
         _open_build(out)  # the clear error, before the lock file would be created
     with build_lock(out):
-        result = audit_build(out, lexicons, translations, top)
+        # Left by an audit that was killed; under the lock no other audit is writing them.
+        for stale in [*out.glob(f".{AUDIT_DIR}.tmp-*"), *out.glob(f".{AUDIT_DIR}.old-*")]:
+            shutil.rmtree(stale, ignore_errors=True)
+        result = audit_build(out, lexicons, translations, top, progress)
+        progress("report")
         write_audit(result)
     return result
 

@@ -104,10 +104,17 @@ def test_foreign_files_in_the_audit_directory_are_kept(build_dir, tmp_path):
 
 def test_a_second_audit_replaces_the_first_as_a_whole(build_dir):
     assert run(build_dir).exit_code == 0
-    first = (build_dir / "audit" / "summary.json").read_text(encoding="utf-8")
+    first = {name: (build_dir / "audit" / name).read_bytes() for name in ("summary.json", "report.html")}
+    (build_dir / ".audit.tmp-99999").mkdir()  # as left by a killed audit
     assert run(build_dir).exit_code == 0
-    assert (build_dir / "audit" / "summary.json").read_text(encoding="utf-8") == first
+    # Byte-identical: the PNGs carry no timestamp or software version.
+    assert {name: (build_dir / "audit" / name).read_bytes() for name in first} == first
     assert not list(build_dir.glob(".audit.*"))
+
+
+def test_quiet_prints_nothing(build_dir):
+    result = run(build_dir, "--quiet")
+    assert result.exit_code == 0 and result.output == ""
 
 
 def test_incomplete_build_is_refused(tmp_path):

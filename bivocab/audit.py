@@ -20,7 +20,7 @@ import numpy as np
 from .clean import normalise_text
 from .corpus import iter_sentences
 from .errors import BivocabError, InputError, OutputError
-from .homographs import (TRANSLATION_LABELS, Lexicon, Translations, near_homographs, read_lexicon,
+from .homographs import (CASE, CASE_AND_MARKS, MARKS, TRANSLATION_LABELS, Lexicon, Translations, near_homographs, read_lexicon,
                          read_translations, spelling_variants)
 from .build import INCOMPLETE
 from .manifest import MANIFEST, build_lock, canonical_json, read_manifest, sha256_file
@@ -542,6 +542,29 @@ def read_language_text(recipe: Recipe, tag: str, train_tokens: int) -> LanguageT
     return LanguageText(sentences, growth)
 
 
+def language_summary(lang: LanguageTypes, counts: Mapping[str, int], text: LanguageText,
+                     class_of: Mapping[str, str]) -> dict[str, Any]:
+    """The statistics of one language's training text (key ``languages.<tag>`` of the summary)."""
+    n_train = text.sentences[TRAIN]
+    stats: dict[str, Any] = {"sentences": n_train, **class_statistics(counts, n_train)}
+    by_class: dict[str, dict[str, int]] = {c: {} for c in TOKEN_CLASSES}
+    for s, c in counts.items():
+        by_class[class_of[s]][s] = c
+    stats["by_class"] = {c: class_statistics(by_class[c], n_train) for c in TOKEN_CLASSES}
+    stats["splits"] = {s: {"sentences": text.sentences[s], "tokens": int(lang.counts[:, i].sum())}
+                       for i, s in enumerate(SPLITS)}
+    heaps = fit_heaps(text.growth, stats["tokens"])
+    stats["heaps"] = None if heaps is None else {
+        "K": heaps.coefficient, "beta": heaps.exponent, "r_squared": heaps.r_squared,
+        "points": heaps.points, "fit_from_tokens": heaps.x_min}
+    zipf = fit_zipf(counts.values())
+    stats["zipf"] = None if zipf is None else {
+        "s": -zipf.exponent, "C": zipf.coefficient, "r_squared": zipf.r_squared,
+        "points": zipf.points, "max_rank": zipf.x_max}
+    stats["growth"] = [list(p) for p in text.growth]
+    return stats
+
+
 Progress = Callable[[str], None]
 
 
@@ -584,23 +607,7 @@ def audit_build(out: str | os.PathLike[str], lexicons: Mapping[str, Path] | None
     for lang, counts in zip(languages, train):
         progress(f"running text {lang.tag}")
         text = read_language_text(recipe, lang.tag, sum(counts.values()))
-        n_train = text.sentences[TRAIN]
-        stats: dict[str, Any] = {"sentences": n_train, **class_statistics(counts, n_train)}
-        by_class = {c: {} for c in TOKEN_CLASSES}
-        for s, c in counts.items():
-            by_class[class_of[s]][s] = c
-        stats["by_class"] = {c: class_statistics(by_class[c], n_train) for c in TOKEN_CLASSES}
-        stats["splits"] = {s: {"sentences": text.sentences[s], "tokens": int(lang.counts[:, i].sum())}
-                           for i, s in enumerate(SPLITS)}
-        heaps = fit_heaps(text.growth, stats["tokens"])
-        stats["heaps"] = None if heaps is None else {
-            "K": heaps.coefficient, "beta": heaps.exponent, "r_squared": heaps.r_squared,
-            "points": heaps.points, "fit_from_tokens": heaps.x_min}
-        zipf = fit_zipf(counts.values())
-        stats["zipf"] = None if zipf is None else {
-            "s": -zipf.exponent, "C": zipf.coefficient, "r_squared": zipf.r_squared,
-            "points": zipf.points, "max_rank": zipf.x_max}
-        stats["growth"] = [list(p) for p in text.growth]
+        stats = language_summary(lang, counts, text, class_of)
         words.append(stats["by_class"][WORD]["tokens"] or stats["tokens"])
         summary["languages"][lang.tag] = stats
 
@@ -630,7 +637,7 @@ def audit_build(out: str | os.PathLike[str], lexicons: Mapping[str, Path] | None
     for key, rows in (("homographs", homographs), ("variants", variants), ("near_homographs", near)):
         section = label_counts(rows, translation_data is not None, lexicon_data, tags)
         if key == "variants":
-            section["by_kind"] = {k: sum(1 for r in rows if r.kind == k) for k in ("case", "marks", "case+marks")}
+            section["by_kind"] = {k: sum(1 for r in rows if r.kind == k) for k in (CASE, MARKS, CASE_AND_MARKS)}
         section["top"] = [pair_record(r, tags, names) for r in rows[:top]]
         summary[key] = section
     summary["inputs"] = {"lexicons": {t: l.path for t, l in lexicon_data.items()},

@@ -270,9 +270,11 @@ def _table(headers: Sequence[str], rows: Sequence[Sequence[Any]], caption: str) 
 
 
 def _figure_html(fig: Figure) -> str:
+    # The caption is the title only: the alt text already describes the plot (shown in its place
+    # when images are off), and every number in it is also in a table.
     data = base64.b64encode(fig.png).decode("ascii")
     return (f'<figure id="{fig.key}"><img src="data:image/png;base64,{data}" alt="{_esc(fig.alt)}">'
-            f"<figcaption>{_esc(fig.title)}. {_esc(fig.alt)}</figcaption></figure>")
+            f"<figcaption>{_esc(fig.title)}</figcaption></figure>")
 
 
 def _pair_table(rows: Sequence[HomographPair], result: AuditResult, caption: str, top: int, exact: bool) -> str:
@@ -315,7 +317,7 @@ figcaption{font-size:.85rem;color:#444;margin-top:.3rem}
 .key{display:grid;grid-template-columns:repeat(auto-fit,minmax(14rem,1fr));gap:.6rem;margin:1rem 0}
 .key div{background:#f4f7fa;border-left:4px solid #0072B2;padding:.5rem .7rem}
 .key b{display:block;font-size:1.25rem}
-.wide{overflow-x:auto}
+.wide{overflow-x:auto}.wide table{font-size:.8rem}.wide th,.wide td{padding:.2rem .4rem}
 """
 
 

@@ -28,7 +28,7 @@ needs_word_lists = pytest.mark.skipif(
     not (EN_WORDS.exists() and DE_WORDS.exists()),
     reason="Debian word lists absent: apt-get install wamerican wngerman (CI must install them)")
 needs_trans = pytest.mark.skipif(
-    not TRANS_DE_EN.exists(), reason="Debian German-English dictionary absent: apt-get install trans-de-en")
+    not TRANS_DE_EN.exists(), reason="Debian German-English dictionary absent: apt-get install trans-de-en (CI must install it)")
 
 RECIPE = """\
 [build]

@@ -24,6 +24,7 @@ from .homographs import (CASE, CASE_AND_MARKS, MARKS, TRANSLATION_LABELS, Lexico
                          read_translations, spelling_variants)
 from .build import INCOMPLETE
 from .manifest import MANIFEST, build_lock, canonical_json, read_manifest, sha256_file
+from .probe import frequency_per_million, zipf_value
 from .recipe import POLICIES, SPLITS, ConditionSpec, Recipe, VocabSpec, recipe_from_manifest
 from .segment import SPECIAL, TOKEN_CLASSES, WORD, segment
 from .vocab import entry_key, sharing_rule, special_tokens, tsv_text
@@ -35,7 +36,6 @@ HEAPS_FIT_FROM = 0.01         # the Heaps fit uses the points with N >= this sha
 ZIPF_MIN_COUNT = 5            # the Zipf fit uses the ranks whose count is at least this
 ZIPF_POINTS_PER_DECADE = 10
 BAND_BASE = 10                # frequency bands: ranks 1-10, 11-100, 101-1000, ...
-PER_MILLION = 1_000_000
 
 
 # --- reading the build ----------------------------------------------------------------------------
@@ -216,15 +216,6 @@ def fit_zipf(counts: Iterable[int]) -> PowerFit | None:
     return _fit_loglog(ranks, freq[ranks - 1])
 
 
-def zipf_value(count: int, total_words: int) -> float:
-    """Zipf scale of van Heuven et al. (2014): log10(frequency per million words) + 3.
-
-    >>> zipf_value(1, 1_000_000)
-    3.0
-    """
-    return math.log10(count * PER_MILLION / total_words) + 3.0
-
-
 # --- overlap and policy sizes ---------------------------------------------------------------------
 
 def overlap_statistics(tags: Sequence[str], train: Sequence[Mapping[str, int]],
@@ -352,11 +343,11 @@ class HomographPair:
 
     @property
     def zipf_a(self) -> float:
-        return math.log10(self.per_million_a) + 3.0
+        return zipf_value(self.per_million_a)   # > 0: a matched spelling occurs in training text
 
     @property
     def zipf_b(self) -> float:
-        return math.log10(self.per_million_b) + 3.0
+        return zipf_value(self.per_million_b)
 
     @property
     def log10_ratio(self) -> float:
@@ -390,7 +381,7 @@ def _pairs(kind_pairs: Iterable[tuple[str, str, str]], tags: Sequence[str], trai
     for kind, a, b in kind_pairs:
         rows.append(HomographPair(
             kind, a, b, class_of[a], train[0][a], train[1][b],
-            train[0][a] * PER_MILLION / words[0], train[1][b] * PER_MILLION / words[1],
+            frequency_per_million(train[0][a], words[0]), frequency_per_million(train[1][b], words[1]),
             tuple(vocab_status(a, b, tags, c, v) for c, v in zip(conditions, vocabs)),
             lex_a.attests(a) if lex_a else None, lex_b.attests(b) if lex_b else None,
             translations.label(a, b) if translations else None))
@@ -505,6 +496,17 @@ def _open_build(out: Path) -> dict[str, Any]:
     return manifest
 
 
+def _check_build_files(out: Path, manifest: dict[str, Any], paths: Iterable[str]) -> None:
+    """The types and vocab files the audit reads must be the ones build.json lists."""
+    hashes = {f["path"]: f["sha256"] for f in manifest.get("files", [])}
+    for rel in paths:
+        path = out / rel
+        if not path.exists():
+            raise InputError(f"{path}: missing from the build directory; rebuild it")
+        if rel not in hashes or sha256_file(path) != hashes[rel]:
+            raise InputError(f"{path}: changed since the build (sha256 differs from {MANIFEST}); rebuild it")
+
+
 def _check_inputs(recipe: Recipe, manifest: dict[str, Any]) -> None:
     """The running text is re-read from the inputs: refuse if one changed since the build."""
     for entry in manifest["inputs"]:
@@ -592,11 +594,14 @@ def audit_build(out: str | os.PathLike[str], lexicons: Mapping[str, Path] | None
     progress("checking inputs")
     _check_inputs(recipe, manifest)
 
-    languages = [read_types(out / manifest["languages"][tag]["types_file"], tag) for tag in tags]
+    types_files = [manifest["languages"][tag]["types_file"] for tag in tags]
+    vocab_files = [manifest["conditions"][c.name]["vocab"] for c in recipe.conditions]
+    _check_build_files(out, manifest, [*types_files, *vocab_files])
+    languages = [read_types(out / path, tag) for path, tag in zip(types_files, tags)]
     train = [lang.counts_in(TRAIN) for lang in languages]
     class_of = {**languages[1].class_of(), **languages[0].class_of()}
     conditions = recipe.conditions
-    vocabs = [read_vocab_entries(out / manifest["conditions"][c.name]["vocab"]) for c in conditions]
+    vocabs = [read_vocab_entries(out / path) for path in vocab_files]
 
     summary: dict[str, Any] = {
         "build": {"name": recipe.name, "languages": list(tags), "statistics_split": TRAIN,

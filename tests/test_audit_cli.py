@@ -130,3 +130,11 @@ def test_audit_leaves_every_build_file_unchanged(build_dir):
     assert run(build_dir).exit_code == 0
     manifest = json.loads((build_dir / "build.json").read_text(encoding="utf-8"))
     assert all(sha256_file(build_dir / f["path"]) == f["sha256"] for f in manifest["files"])
+
+
+def test_edited_build_file_is_refused(tmp_path):
+    out = make_build(tmp_path, lines=60)
+    with open(out / "types" / "en.tsv", "a", encoding="utf-8") as handle:
+        handle.write("Kellhaven\tword\t1\t0\t0\n")
+    result = run(out)
+    assert result.exit_code == 2 and "types/en.tsv: changed since the build" in result.output

@@ -10,8 +10,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from bivocab.audit import (fit_heaps, fit_zipf, growth_curve, heaps_vocabulary, policy_sizes,
-                           uncapped_size, zipf_value)
+from bivocab.audit import fit_heaps, fit_zipf, growth_curve, heaps_vocabulary, policy_sizes, uncapped_size
+from bivocab.probe import frequency_per_million, zipf_value
 from bivocab.recipe import POLICIES, ConditionSpec, VocabSpec
 from bivocab.segment import token_class
 
@@ -53,8 +53,8 @@ def test_heaps_fit_needs_three_points():
 
 def test_zipf_value_of_one_per_million_is_three():
     # van Heuven, Mandera, Keuleers & Brysbaert (2014): Zipf = log10(per million words) + 3.
-    assert zipf_value(1, 1_000_000) == 3.0
-    assert zipf_value(1000, 1_000_000) == 6.0
+    assert zipf_value(frequency_per_million(1, 1_000_000)) == 3.0
+    assert zipf_value(frequency_per_million(1000, 1_000_000)) == 6.0
 
 
 @pytest.mark.parametrize("word, lang", [("the", "en"), ("harbor", "en"), ("hafen", "de"), ("bald", "de")])
@@ -62,7 +62,7 @@ def test_zipf_value_agrees_with_wordfreq(word, lang):
     wordfreq = pytest.importorskip("wordfreq")
     # wordfreq 3.1.1 (pinned in the test extra) reports Zipf values rounded to 2 decimals.
     per_million = wordfreq.word_frequency(word, lang) * 1_000_000
-    assert zipf_value(round(per_million * 1000), 1_000_000_000) == pytest.approx(
+    assert zipf_value(per_million) == pytest.approx(
         wordfreq.zipf_frequency(word, lang), abs=0.006)
 
 

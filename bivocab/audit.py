@@ -20,9 +20,9 @@ import numpy as np
 from .clean import normalise_text
 from .corpus import iter_sentences
 from .errors import BivocabError, InputError, OutputError
-from .homographs import (CASE, CASE_AND_MARKS, MARKS, TRANSLATION_LABELS, Lexicon, Translations, near_homographs, read_lexicon,
-                         read_translations, spelling_variants)
 from .build import INCOMPLETE
+from .homographs import (CASE, CASE_AND_MARKS, MARKS, TRANSLATION_LABELS, Lexicon, Translations, near_homographs,
+                         read_lexicon, read_translations, spelling_variants)
 from .manifest import MANIFEST, build_lock, canonical_json, read_manifest, sha256_file
 from .probe import frequency_per_million, zipf_value
 from .recipe import POLICIES, SPLITS, ConditionSpec, Recipe, VocabSpec, recipe_from_manifest
@@ -358,9 +358,9 @@ class HomographPair:
         return self.per_million_a + self.per_million_b
 
 
-def vocab_status(a: str, b: str, tags: Sequence[str], condition: ConditionSpec, vocab: VocabEntries) -> str:
-    """Whether the pair is one shared entry, two separate entries, one of them, or absent."""
-    rule = sharing_rule(condition)
+def vocab_status(a: str, b: str, tags: Sequence[str], rule: Callable[[str], bool], vocab: VocabEntries) -> str:
+    """Whether the pair is one shared entry, two separate entries, one of them, or absent, under
+    a condition's sharing rule (:func:`bivocab.vocab.sharing_rule`) and vocabulary."""
     key_a, key_b = entry_key(a, tags[0], rule), entry_key(b, tags[1], rule)
     has_a, has_b = key_a in vocab.entries, key_b in vocab.entries
     if key_a == key_b:
@@ -377,12 +377,13 @@ def _pairs(kind_pairs: Iterable[tuple[str, str, str]], tags: Sequence[str], trai
            vocabs: Sequence[VocabEntries], lexicons: Mapping[str, Lexicon],
            translations: Translations | None) -> tuple[HomographPair, ...]:
     lex_a, lex_b = lexicons.get(tags[0]), lexicons.get(tags[1])
+    rules = [sharing_rule(c) for c in conditions]
     rows = []
     for kind, a, b in kind_pairs:
         rows.append(HomographPair(
             kind, a, b, class_of[a], train[0][a], train[1][b],
             frequency_per_million(train[0][a], words[0]), frequency_per_million(train[1][b], words[1]),
-            tuple(vocab_status(a, b, tags, c, v) for c, v in zip(conditions, vocabs)),
+            tuple(vocab_status(a, b, tags, rule, v) for rule, v in zip(rules, vocabs)),
             lex_a.attests(a) if lex_a else None, lex_b.attests(b) if lex_b else None,
             translations.label(a, b) if translations else None))
     rows.sort(key=lambda r: (-r.combined_per_million, r.surface_a, r.surface_b))

@@ -24,7 +24,7 @@ from .mix import smoothed_probabilities
 from .recipe import SPLITS, CleanSpec, ConditionSpec, Recipe, SubwordSpec
 from .scan import ragged_gather
 from .segment import NUMBER, PUNCT, SPECIAL, SYMBOL, WORD, segment
-from .vocab import SHARED, Entry, Vocabulary, _specials, tagged_token, tokenizer_json
+from .vocab import SHARED, Entry, Vocabulary, special_tokens, tagged_token, tokenizer_json
 
 BOUNDARY = "\u2581"                   # sentencepiece's visible space, written before a word
 SPACE, BYTE = "space", "byte"         # piece classes beyond the token classes
@@ -359,7 +359,7 @@ def build_subword_condition(condition: ConditionSpec, recipe: Recipe, texts: Seq
     tags = recipe.tags
     joint = is_joint(condition)
     vs = condition.vocab
-    specials = _specials(tags, vs.unknown, vs.eos, vs.pad)
+    specials = special_tokens(tags, vs.unknown, vs.eos, vs.pad)
     index = {token: i for i, (token, _) in enumerate(specials)}
     unk_ids = tuple(index["<unk>"] if vs.unknown == "shared" else index[f"<unk:{t}>"] for t in tags)
     eos_ids = None if vs.eos == "none" else tuple(

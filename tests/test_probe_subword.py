@@ -19,8 +19,8 @@ from conftest import copy_tree
 from test_probe import read_jsonl, run_cli, write_items
 from test_subword import sentences_by_position, shard_sentences, write_subword_corpus
 
-# A word-level condition beside a joint unigram model, one unigram model per language and a
-# joint model without byte fallback: small sizes, so the build takes a few seconds.
+# A word-level condition beside a joint unigram model, one unigram model per language, a joint
+# BPE model and a joint unigram model without byte fallback: small sizes, so the build takes a few seconds.
 RECIPE = """
 [build]
 name = "probe-subword"
@@ -45,6 +45,11 @@ size_per_language = 330
 unknown = "per-language"
 eos = "per-language"
 [[condition]]
+name = "joint-bpe"
+policy = "shared"
+units = "bpe"
+size = 400
+[[condition]]
 name = "joint-no-bytes"
 policy = "shared"
 units = "unigram"
@@ -52,7 +57,7 @@ size = 150
 byte_fallback = false
 eos = "none"
 """
-SUBWORD = ("joint", "separate", "joint-no-bytes")
+SUBWORD = ("joint", "separate", "joint-bpe", "joint-no-bytes")
 
 # Invented Kellhaven items; 漢 occurs nowhere in the corpus, so it has no piece.
 ITEMS = [

@@ -410,6 +410,10 @@ def render_report(result: AuditResult, top: int = 25) -> str:
     out.append('<div class="wide">' + _table(["condition", "policy", "size", "uncapped size",
                                               *[f"OOV {t} {sp}" for t in tags for sp in SPLITS]],
                                              rows, "Share of tokens out of vocabulary") + "</div>")
+    subword = [n for n in result.conditions if s["conditions"][n]["uncapped_size"] is None]
+    if subword:
+        out.append(f"<p>Subword conditions ({_esc(', '.join(subword))}): the share of pieces that are the unknown "
+                   "piece; they have no word-level uncapped size.</p>")
     rows = []
     for name in result.conditions:
         for t in tags:
@@ -428,8 +432,9 @@ def render_report(result: AuditResult, top: int = 25) -> str:
         out.append(f"<p>Counted on the {_esc(sub['split'])} split. Out of vocabulary for a subword condition means "
                    "the unknown piece (with byte fallback every character has pieces). Fertility = pieces per word "
                    "and continued words = words of two or more pieces (Rust et al. 2021); parity = fertility "
-                   f"{_esc(a)} / fertility {_esc(b)}, on {_esc(sub['text'])} (Petrov et al. 2023 define it on "
-                   "parallel text). Pieces used by both: non-special ids found in both languages' shards.</p>")
+                   f"{_esc(a)} / fertility {_esc(b)}, so pieces per word: the text is comparable, not parallel "
+                   "(Petrov et al. 2023 define parity on parallel text, per translated sentence). Pieces used by "
+                   "both: non-special ids found in both languages' shards.</p>")
         out.append('<div class="wide">' + _table(subword_headers(tags), subword_rows(sub, tags),
                                                  "Subword conditions: fertility, continued words, parity, "
                                                  "shared pieces") + "</div>")

@@ -35,6 +35,8 @@ from .segment import token_class
 from .shards import PROVENANCE_DTYPE, ShardWriter, shard_stem, write_npy
 from .sources import InputFile, file_sha256, read_blocks
 from .splits import split_thresholds
+from .subword import (SentenceText, SubwordCondition, build_subword_condition, model_path, tokenizer_path,
+                      unigram_tokenizer_json)
 from .vocab import Vocabulary, build_vocabulary, tokenizer_json, tsv_text, vocab_tsv
 
 INCOMPLETE = ".bivocab-incomplete"
@@ -162,7 +164,7 @@ def _scan_tasks(recipe: Recipe, files: list[InputFile], keep_text: bool) -> Iter
     """Blocks of every input, the languages' streams interleaved block by block so that each
     worker can keep to one language (results do not depend on the interleaving: each language
     is merged in its own input order).  ``keep_text``: results carry the sentences' text (costly
-    to send back from the workers; only hygiene needs it)."""
+    to send back from the workers; hygiene and subword training need it)."""
     thresholds = split_thresholds(recipe.splits)
     session = uuid.uuid4().hex
 
@@ -254,7 +256,9 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
     hygiene = prepare_hygiene(recipe, files, jobs)
     with meter.stage("scan", total=total_bytes, unit="B") as advance:
         type_maps = WorkerTypeMaps()
-        for result in ordered_map(scan_block, _scan_tasks(recipe, files, hygiene.active), jobs,
+        # The sentences' text goes to the work directory only for hygiene and subword training.
+        keep_text = hygiene.active or any(cond.units != "word" for cond in recipe.conditions)
+        for result in ordered_map(scan_block, _scan_tasks(recipe, files, keep_text), jobs,
                                   affinity=lambda task: tags.index(task.language)):
             started = time.perf_counter()
             li = lang_of_file[result.file_index]
@@ -277,10 +281,20 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
         raise BivocabError(f"{recipe.path}: language '{empty}' has no sentences after cleaning")
 
     surfaces = [scan.table.surfaces for scan in scans]
+    subwords: dict[str, SubwordCondition] = {}
+    subword_conditions = [cond for cond in recipe.conditions if cond.units != "word"]
+    if subword_conditions:
+        with meter.stage("subword models", total=len(subword_conditions), unit="conditions") as advance:
+            texts = [SentenceText(work / f"{tag}.text", scan.sentences) for tag, scan in zip(tags, scans)]
+            for cond in subword_conditions:
+                subwords[cond.name] = build_subword_condition(cond, recipe, texts, [a["splits"] for a in arrays],
+                                                              work, jobs)
+                advance(1)
     vocabs = []
     with meter.stage("vocabulary", total=len(recipe.conditions), unit="conditions") as advance:
         for cond in recipe.conditions:
-            vocabs.append(build_vocabulary(cond, tags, surfaces, [scan.split_counts[0] for scan in scans]))
+            vocabs.append(subwords[cond.name].vocab if cond.name in subwords else
+                          build_vocabulary(cond, tags, surfaces, [scan.split_counts[0] for scan in scans]))
             advance(1)
 
     advance = meter.begin("shards", total=sum(s.sentences for s in scans), unit="sentences")
@@ -320,7 +334,10 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
             write_npy(out / path, prov)
             written.append(path)
             for cond, vocab in zip(recipe.conditions, vocabs):
-                paths = _write_condition_shard(shard_writer, cond.name, stem, vocab, langs, gathered,
+                sub = subwords.get(cond.name)
+                here = gathered if sub is None else [
+                    (mask, *sub.gather(li, rows_here[mask])) for li, (mask, _, _) in enumerate(gathered)]
+                paths = _write_condition_shard(shard_writer, cond.name, stem, vocab, langs, here,
                                                stats[cond.name][split], prov)
                 written += paths
                 shard_paths[cond.name][split].append(f"{cond.name}/{stem}")
@@ -332,6 +349,18 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
         path = f"{cond.name}/vocab.tsv"
         atomic_write_text(out / path, vocab_tsv(vocab))
         written.append(path)
+        if cond.name in subwords:
+            for li, (tag, model) in enumerate(zip(tags, subwords[cond.name].models)):
+                path = model_path(cond.name, tag)
+                with atomic_open(out / path) as handle:
+                    handle.write(model)
+                written.append(path)
+                if cond.units == "unigram":
+                    path = tokenizer_path(cond.name, tag)
+                    atomic_write_text(out / path, unigram_tokenizer_json(model, vocab, li, recipe.clean))
+                    written.append(path)
+            advance(1)
+            continue
         for li, tag in enumerate(tags):
             path = f"{cond.name}/tokenizer.{tag}.json"
             atomic_write_text(out / path, tokenizer_json(vocab, li, recipe.clean))
@@ -348,6 +377,10 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
         for cond, vocab in zip(recipe.conditions, vocabs))
     meter.begin("manifest", total=None, unit="")
     manifest = _manifest(recipe, out, files, hashes, per_file, scans, vocabs, shard_paths, written, summaries)
+    for name, sub in subwords.items():
+        entry = manifest["conditions"][name]
+        entry.update(models={t: model_path(name, t) for t in tags}, subword=sub.record,
+                     tokenizers={t: tokenizer_path(name, t) for t in tags} if sub.record["units"] == "unigram" else {})
     manifest["mixing"] = mixing
     manifest["hygiene"] = hygiene.report()
     atomic_write_text(out / MANIFEST, canonical_json(manifest))
@@ -436,7 +469,7 @@ def _manifest(recipe: Recipe, out: Path, files: list[InputFile], hashes: dict[st
     conditions = {}
     for cond, vocab, summary in zip(recipe.conditions, vocabs, summaries):
         conditions[cond.name] = {
-            "policy": cond.policy, "classes": cond.classes, "vocab": f"{cond.name}/vocab.tsv",
+            "policy": cond.policy, "units": cond.units, "classes": cond.classes, "vocab": f"{cond.name}/vocab.tsv",
             "size": len(vocab), "specials": vocab.special_count,
             "tokenizers": {t: f"{cond.name}/tokenizer.{t}.json" for t in recipe.tags},
             "dtype": vocab.dtype.name, "shards": shard_paths[cond.name],

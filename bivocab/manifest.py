@@ -19,7 +19,8 @@ MANIFEST = "build.json"
 LOCK = ".bivocab.lock"
 WORK = ".bivocab-work"
 # Libraries whose versions can change what a build writes.
-OUTPUT_LIBRARIES = ("bivocab", "numpy", "regex", "tokenizers", "pyarrow", "langcodes", "zstandard")
+OUTPUT_LIBRARIES = ("bivocab", "numpy", "regex", "tokenizers", "pyarrow", "langcodes", "zstandard",
+                    "sentencepiece", "protobuf")
 
 
 def sha256_file(path: Path) -> str:

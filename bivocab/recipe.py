@@ -100,6 +100,26 @@ class ShardSpec:
     max_tokens: int = 1_000_000       # a shard is closed after the sentence that reaches this
 
 
+SUBWORD_UNITS: tuple[str, ...] = ("unigram", "bpe")
+
+
+@dataclass(frozen=True)
+class SubwordSpec:
+    """Subword model of a condition (docs/subword.md). Exactly one of ``size`` and
+    ``size_per_language`` is set (0 = unset)."""
+
+    size: int = 0                     # entries of the condition's vocabulary, specials included
+    size_per_language: int = 0        # pieces trained per language (separate models only)
+    engine: str = "sentencepiece"
+    sample_sentences: int = 0         # training sentences per language (0 = the whole train split)
+    sample_alpha: float = 1.0         # joint model: language shares q_i ~ p_i^alpha (1 = as available)
+    character_coverage: float = 1.0
+    byte_fallback: bool = True        # unseen characters become byte pieces instead of <unk>
+    max_sentence_bytes: int = 65536   # longer train sentences are left out of the sample (counted)
+    train_threads: int = 1            # fixed, so the model does not depend on --jobs or the machine
+    exact_size: bool = True           # false: sentencepiece may stop short of the size on a small corpus
+
+
 @dataclass(frozen=True)
 class HygieneSpec:
     """Corpus hygiene steps applied after cleaning, each off by default (docs/inputs.md)."""
@@ -123,6 +143,8 @@ class ConditionSpec:
     share: tuple[str, ...] = ()       # spellings forced to one entry
     separate: tuple[str, ...] = ()    # spellings forced to one entry per language
     vocab: VocabSpec = field(default_factory=VocabSpec)
+    units: str = "word"               # word | unigram | bpe
+    subword: SubwordSpec | None = None  # set when units is not "word"
 
 
 @dataclass(frozen=True)
@@ -229,6 +251,11 @@ def _describe(val: Any) -> str:
 
 
 _CLASS_CHOICE = ("shared", "tagged")
+_SUBWORD_KEYS: dict[str, Any] = {
+    "size": int, "size_per_language": int, "engine": ("sentencepiece",), "sample_sentences": int,
+    "sample_alpha": float, "character_coverage": float, "byte_fallback": bool,
+    "max_sentence_bytes": int, "train_threads": int, "exact_size": bool,
+}
 _VOCAB_KEYS: dict[str, Any] = {
     "max_size": int, "min_count": int, "unknown": ("shared", "per-language"),
     "eos": ("shared", "per-language", "none"), "pad": bool,
@@ -363,7 +390,8 @@ def _read_conditions(r: _Reader, path: str, vocab: VocabSpec) -> tuple[Condition
     if not isinstance(raw, list):
         raise r.fail("condition", 0, "", "must be written as [[condition]] (an array of tables)")
     allowed = {"name": str, "policy": tuple(POLICIES), "classes": "table",
-               "share": "strings", "separate": "strings", **_VOCAB_KEYS}
+               "share": "strings", "separate": "strings", **_VOCAB_KEYS,
+               "units": ("word", *SUBWORD_UNITS), **_SUBWORD_KEYS}
     out: list[ConditionSpec] = []
     seen: dict[str, int] = {}
     for index, spec in enumerate(raw):
@@ -388,12 +416,49 @@ def _read_conditions(r: _Reader, path: str, vocab: VocabSpec) -> tuple[Condition
             raise r.fail("condition", index, "separate", f"spelling {both[0]!r} is both in share and separate")
         cond_vocab = _vocab_spec(r, "condition", index,
                                  {k: v for k, v in values.items() if k in _VOCAB_KEYS}, vocab)
+        units = values.get("units", "word")
+        subword = _subword_spec(r, index, values, units, classes)
         out.append(ConditionSpec(name=name, policy=values["policy"], classes=classes,
                                  share=tuple(sorted(set(share))), separate=tuple(sorted(set(separate))),
-                                 vocab=cond_vocab))
+                                 vocab=cond_vocab, units=units, subword=subword))
     if not out:
         raise RecipeError(f"{path}: at least one [[condition]] is needed")
     return tuple(out)
+
+
+def _subword_spec(r: _Reader, index: int, values: dict[str, Any], units: str,
+                  classes: dict[str, str]) -> SubwordSpec | None:
+    given = [k for k in _SUBWORD_KEYS if k in values]
+    if units == "word":
+        if given:
+            raise r.fail("condition", index, given[0], "applies to subword units only (set units = \"unigram\" or \"bpe\")")
+        return None
+    for key in ("share", "separate", "max_size", "min_count"):
+        if key in values:
+            raise r.fail("condition", index, key, f"applies to units = \"word\" only (subword sizes are set with size or size_per_language)")
+    spec = SubwordSpec(**{k: values[k] for k in given})
+    joint = all(choice == "shared" for choice in classes.values())
+    if bool(spec.size) == bool(spec.size_per_language):
+        raise r.fail("condition", index, "", "a subword condition needs exactly one of size and size_per_language")
+    if spec.size < 0 or spec.size_per_language < 0:
+        raise r.fail("condition", index, "size" if spec.size < 0 else "size_per_language", "must be > 0")
+    if joint and spec.size_per_language:
+        raise r.fail("condition", index, "size_per_language",
+                     "a shared condition trains one joint model: set its total with size")
+    if not joint and "sample_alpha" in values:
+        raise r.fail("condition", index, "sample_alpha",
+                     "applies to the joint model of a shared condition (separate models train on one language each)")
+    if spec.sample_sentences < 0:
+        raise r.fail("condition", index, "sample_sentences", "must be >= 0 (0 = the whole train split)")
+    if not 0 <= spec.sample_alpha <= 1:
+        raise r.fail("condition", index, "sample_alpha", "must be between 0 (equal shares) and 1 (shares as available)")
+    if not 0.9 <= spec.character_coverage <= 1.0:
+        raise r.fail("condition", index, "character_coverage", "must be between 0.9 and 1.0")
+    if spec.max_sentence_bytes < 16:
+        raise r.fail("condition", index, "max_sentence_bytes", "must be >= 16")
+    if not 1 <= spec.train_threads <= 256:
+        raise r.fail("condition", index, "train_threads", "must be between 1 and 256")
+    return spec
 
 
 def is_saved_dataset(path: str) -> bool:
@@ -499,6 +564,15 @@ policy = "fully-tagged"
 # classes = { number = "shared" }   # override the policy for single token classes
 # share = ["Hotel", "Radio"]        # force these spellings to one shared entry
 # separate = ["also", "bald"]       # force these spellings to one entry per language
+
+# A subword condition trains sentencepiece models on a seeded sample of the train split
+# (docs/subword.md): one joint model under "shared", one model per language otherwise.
+# [[condition]]
+# name = "joint-unigram"
+# policy = "shared"
+# units = "unigram"                 # word (default) | unigram | bpe
+# size = 8000                       # vocabulary entries, specials included
+# sample_alpha = 0.5                # exponent-smoothed language shares of the joint sample
 '''
 
 
@@ -510,7 +584,9 @@ def recipe_from_manifest(manifest: dict[str, Any], out: str | os.PathLike[str]) 
     data = manifest["recipe"]
     recipe_path = os.path.normpath(os.path.join(str(out), manifest["recipe_file"]))
     conditions = tuple(ConditionSpec(**{**c, "share": tuple(c["share"]), "separate": tuple(c["separate"]),
-                                        "vocab": VocabSpec(**c["vocab"])}) for c in data["conditions"])
+                                        "vocab": VocabSpec(**c["vocab"]),
+                                        "subword": SubwordSpec(**c["subword"]) if c.get("subword") else None})
+                       for c in data["conditions"])
     languages = tuple(LanguageSpec(tag=l["tag"], inputs=tuple(l["inputs"]), files=tuple(l["files"]),
                                    read=ReadSpec(**l.get("read", {})))
                       for l in data["languages"])

@@ -47,8 +47,11 @@ def plan_text(recipe: Recipe, inputs: list[tuple[str, str, int, int]]) -> str:
             extra.append(f"share {len(cond.share)} spellings")
         if cond.separate:
             extra.append(f"separate {len(cond.separate)} spellings")
-        out.append(f"  {cond.name:<16} {cond.policy:<13} {classes}; max_size {v.max_size or 'none'}, "
-                   f"min_count {v.min_count}, unknown {v.unknown}, eos {v.eos}"
+        w = cond.subword
+        sizing = (f"max_size {v.max_size or 'none'}, min_count {v.min_count}" if w is None else
+                  f"{cond.units} ({w.engine}), " + (f"size {w.size}" if w.size else f"{w.size_per_language} pieces per language")
+                  + f", sample {w.sample_sentences or 'all'} per language")
+        out.append(f"  {cond.name:<16} {cond.policy:<13} {classes}; {sizing}, unknown {v.unknown}, eos {v.eos}"
                    + (f"; {', '.join(extra)}" if extra else ""))
     return "\n".join(out)
 

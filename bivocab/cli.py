@@ -31,6 +31,7 @@ def main() -> None:
 @click.argument("directory", type=click.Path(file_okay=False, path_type=Path))
 def init(directory: Path) -> None:
     """Write a commented starter recipe into DIRECTORY/recipe.toml."""
+    from .manifest import atomic_write_text
     from .recipe import STARTER_RECIPE
 
     target = directory / "recipe.toml"
@@ -38,9 +39,9 @@ def init(directory: Path) -> None:
         raise BivocabError(f"{target}: already exists; not overwriting it")
     try:
         directory.mkdir(parents=True, exist_ok=True)
-        target.write_text(STARTER_RECIPE, encoding="utf-8")
     except OSError as exc:
-        raise BivocabError(f"{target}: cannot write: {exc.strerror}") from None
+        raise BivocabError(f"{directory}: cannot create directory: {exc.strerror}") from None
+    atomic_write_text(target, STARTER_RECIPE)
     click.echo(f"wrote {target}; edit the inputs, then run: bivocab check {target}")
 
 
@@ -62,13 +63,17 @@ def check(recipe: Path) -> None:
 @click.option("--jobs", default=1, show_default=True, type=click.IntRange(min=1), help="Worker processes.")
 @click.option("--force", is_flag=True, help="Replace a directory that holds something else.")
 @click.option("--quiet", is_flag=True, help="Print nothing but errors.")
-def build_command(recipe: Path, out: Path, jobs: int, force: bool, quiet: bool) -> None:
+@click.option("--resume", is_flag=True, help="Reuse the hash-checked shards of an interrupted build of the same recipe.")
+def build_command(recipe: Path, out: Path, jobs: int, force: bool, quiet: bool, resume: bool) -> None:
     """Build every condition of RECIPE into OUT."""
     from .build import build
     from .report import summary_text
 
     show = (lambda stage: click.echo(f"[{stage}]", err=True)) if not quiet and sys.stderr.isatty() else (lambda _: None)
-    result = build(recipe, out, jobs=jobs, force=force, progress=show)
+    result = build(recipe, out, jobs=jobs, force=force, progress=show, resume=resume)
+    if resume and not quiet:
+        click.echo(f"resume: reused {len(result.reused_shards)} of {result.total_shards} shards "
+                   "(each file checked against its recorded sha256)", err=True)
     if not quiet:
         click.echo(summary_text(result))
 
@@ -93,6 +98,22 @@ def probe_command(directory: Path, items: Path, ngram: int, as_json: bool, stric
     if strict and failing:
         raise CheckFailed(f"{items}: {len(failing)} item(s) have an OOV critical word or are contaminated: "
                           f"{', '.join(failing)}")
+
+
+@main.command(name="verify")
+@click.argument("directory", type=click.Path(file_okay=False, path_type=Path))
+@click.option("--hashes-only", is_flag=True, help="Re-hash the files on disk against build.json; do not rebuild.")
+@click.option("--jobs", default=1, show_default=True, type=click.IntRange(min=1), help="Worker processes for the rebuild.")
+@click.option("--json", "as_json", is_flag=True, help="Print the report as JSON.")
+def verify_command(directory: Path, hashes_only: bool, jobs: int, as_json: bool) -> None:
+    """Rebuild DIRECTORY from its build.json and compare every file (exit 1 on any difference)."""
+    from .verify import report_json, report_text, verify, verify_or_fail
+
+    report = verify(directory, hashes_only=hashes_only, jobs=jobs)
+    for warning in report.warnings:
+        click.echo(f"warning: {warning}", err=True)
+    click.echo(report_json(report) if as_json else report_text(report))
+    verify_or_fail(report)
 
 
 if __name__ == "__main__":

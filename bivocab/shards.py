@@ -9,7 +9,6 @@ sentences in the same order, the input file index (into build.json ``inputs``) a
 
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Iterator
@@ -17,7 +16,7 @@ from typing import Iterator
 import numpy as np
 
 from .errors import BivocabError
-from .manifest import MANIFEST, atomic_open
+from .manifest import atomic_open, complete_manifest
 
 PROVENANCE_DTYPE = np.dtype([("input", "<u4"), ("line", "<i8")])
 
@@ -53,11 +52,7 @@ class ShardReader:
 
     def __init__(self, out: str | Path, condition: str, split: str):
         self.out = Path(out)
-        manifest_path = self.out / MANIFEST
-        try:
-            manifest = json.loads(manifest_path.read_text(encoding="utf-8"))
-        except FileNotFoundError:
-            raise BivocabError(f"{manifest_path}: no build.json: not a complete bivocab build") from None
+        manifest = complete_manifest(self.out)  # refuses an incomplete (killed or running) build
         conditions = manifest["conditions"]
         if condition not in conditions:
             raise BivocabError(f"{self.out}: no condition {condition!r} (have: {', '.join(sorted(conditions))})")

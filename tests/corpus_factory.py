@@ -26,6 +26,7 @@ def write_corpus(root: Path, sentences: int = 400, files_per_language: int = 2, 
 def write_recipe(root: Path, name: str = "kellhaven-safety", max_tokens: int = 1000, extra: str = "",
                  en: str = "en/*.txt", de: str = "de/*.txt") -> Path:
     """A three-condition recipe over ``root``'s corpus with small shards (several per split)."""
+    root.mkdir(parents=True, exist_ok=True)
     path = root / "recipe.toml"
     path.write_text(f'''[build]
 name = "{name}"

@@ -426,6 +426,14 @@ def types_tsv(scan: LanguageScan) -> str:
     return tsv_text(["surface", "class", "count_train", "count_valid", "count_test"], rows)
 
 
+def _input_report(counters: Counter) -> Counter:
+    """An input's counters as recorded; an empty file (no line at all) is counted as such."""
+    report = Counter({"lines_read": 0, **counters})
+    if not report["lines_read"]:
+        report["empty_file"] = 1
+    return report
+
+
 def _manifest(recipe: Recipe, out: Path, files: list[InputFile], hashes: dict[str, str],
               per_file: list[Counter], scans: list[LanguageScan], vocabs: list[Vocabulary],
               shard_paths: dict[str, dict[str, list[str]]], written: list[str],
@@ -437,7 +445,7 @@ def _manifest(recipe: Recipe, out: Path, files: list[InputFile], hashes: dict[st
         recipe_sha = ""
     inputs = [{"path": f.display, "language": f.language, "sha256": hashes[f.display],
                "lines": int(per_file[i].get("lines_read", 0)),
-               "report": {k: int(v) for k, v in sorted(per_file[i].items())}}
+               "report": {k: int(v) for k, v in sorted(_input_report(per_file[i]).items())}}
               for i, f in enumerate(files)]
     conditions = {}
     for cond, vocab, summary in zip(recipe.conditions, vocabs, summaries):

@@ -25,6 +25,8 @@ _SPACE_RE = re.compile(
 _CONTROL_RE = re.compile("[\x00-\x08\x0e-\x1b\x7f-\x84\x86-\x9f]")
 _MULTI_SPACE_RE = re.compile(" {2,}")
 _EDGE_SPACE_RE = re.compile("^ | $", re.MULTILINE)
+# A kept line this long is counted: it is most likely not one sentence (a lost line break).
+LONG_LINE_CHARS = 100_000
 
 
 @dataclass(frozen=True)
@@ -132,6 +134,8 @@ def clean_block(block: Block, spec: CleanSpec, display: str) -> CleanLines:
         if spec.max_chars and len(text) > spec.max_chars:
             counters["too_long_dropped"] += 1
             continue
+        if len(text) > LONG_LINE_CHARS:
+            counters["long_lines_kept"] += 1
         changed += text != raw
         kept.append(text)
         numbers.append(block.first_line + offset)

@@ -67,7 +67,7 @@ def check(recipe: Path) -> None:
 def build_command(recipe: Path, out: Path, jobs: int, force: bool, quiet: bool, resume: bool) -> None:
     """Build every condition of RECIPE into OUT."""
     from .build import build
-    from .report import summary_text
+    from .report import input_notes, summary_text
 
     show = (lambda stage: click.echo(f"[{stage}]", err=True)) if not quiet and sys.stderr.isatty() else (lambda _: None)
     result = build(recipe, out, jobs=jobs, force=force, progress=show, resume=resume)
@@ -75,6 +75,8 @@ def build_command(recipe: Path, out: Path, jobs: int, force: bool, quiet: bool, 
         click.echo(f"resume: reused {len(result.reused_shards)} of {result.total_shards} shards "
                    "(each file checked against its recorded sha256)", err=True)
     if not quiet:
+        for note in input_notes(result.manifest):
+            click.echo(f"note: {note}", err=True)
         click.echo(summary_text(result))
 
 

@@ -334,6 +334,7 @@ def resolve_recipe_inputs(recipe: Recipe) -> Recipe:
     """Expand each language's globs into a sorted file list; a glob matching nothing is an error."""
     base = recipe.base_dir
     languages = []
+    seen: dict[str, str] = {}  # real path -> path as matched, across both languages
     for lang in recipe.languages:
         files: list[str] = []
         for pattern in lang.inputs:
@@ -347,6 +348,15 @@ def resolve_recipe_inputs(recipe: Recipe) -> Recipe:
                 raise InputError(f"{recipe.path}: [languages.{lang.tag}] inputs: {pattern!r} matches no file")
             for m in matches:
                 rel = os.path.relpath(m, base)
+                if not os.path.exists(m):  # glob lists links it cannot follow
+                    raise InputError(f"{rel}: broken symbolic link or symbolic link loop "
+                                     f"(matched by {pattern!r} in [languages.{lang.tag}])")
+                # The same file reached twice (a symlinked directory, a cycle under **) would be read twice.
+                real = os.path.realpath(m)
+                if real in seen and seen[real] != rel:
+                    raise InputError(f"{rel}: is the same file as {seen[real]} (reached through a symbolic "
+                                     f"link); make the globs of [languages.{lang.tag}] match each file once")
+                seen[real] = rel
                 if rel not in files:
                     files.append(rel)
         languages.append(LanguageSpec(tag=lang.tag, inputs=lang.inputs, files=tuple(files)))

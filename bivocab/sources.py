@@ -114,14 +114,15 @@ def read_blocks(source: InputFile, file_index: int, block_bytes: int | None = No
             if pending_cr and data.startswith(b"\n"):
                 data = data[1:]  # the LF of a CRLF split across two reads
             pending_cr = False
+            last_cr = 0  # the line break that ends the block was a CR or CRLF (counted too)
             if at_end:
                 complete, carry = data, b""
                 if not complete:
                     break
                 if complete.endswith(b"\r\n"):
-                    complete = complete[:-2]
+                    complete, last_cr = complete[:-2], 1
                 elif complete.endswith((b"\n", b"\r")):
-                    complete = complete[:-1]
+                    complete, last_cr = complete[:-1], int(complete.endswith(b"\r"))
             else:
                 cut = max(data.rfind(b"\n"), data.rfind(b"\r"))
                 if cut < 0 or first:
@@ -129,8 +130,9 @@ def read_blocks(source: InputFile, file_index: int, block_bytes: int | None = No
                     continue
                 complete, carry = data[:cut], data[cut + 1:]
                 if data[cut:cut + 1] == b"\n" and complete.endswith(b"\r"):
-                    complete = complete[:-1]
+                    complete, last_cr = complete[:-1], 1
                 pending_cr = data[cut:cut + 1] == b"\r"
+                last_cr = last_cr or int(pending_cr)
                 if pending_cr and carry.startswith(b"\n"):
                     carry, pending_cr = carry[1:], False
             cr = 0
@@ -138,7 +140,7 @@ def read_blocks(source: InputFile, file_index: int, block_bytes: int | None = No
                 cr = complete.count(b"\r")
                 complete = complete.replace(b"\r\n", b"\n").replace(b"\r", b"\n")
             count = complete.count(b"\n") + 1
-            yield Block(file_index, line, complete, count, bom, cr)
+            yield Block(file_index, line, complete, count, bom, cr + last_cr)
             line += count
             if at_end:
                 break

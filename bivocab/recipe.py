@@ -192,7 +192,15 @@ _VOCAB_KEYS: dict[str, Any] = {
 
 
 def is_valid_language_tag(tag: str) -> bool:
-    """BCP 47 (RFC 5646) well-formedness and validity, checked by the langcodes library."""
+    """BCP 47 (RFC 5646) well-formedness and validity, checked by the langcodes library.
+
+    langcodes also accepts "en_US"; RFC 5646 section 2.1 allows only ASCII letters, digits and "-".
+
+    >>> is_valid_language_tag("zh-Hant"), is_valid_language_tag("en_US")
+    (True, False)
+    """
+    if not re.fullmatch(r"[A-Za-z0-9]{1,8}(-[A-Za-z0-9]{1,8})*", tag):
+        return False
     try:
         return langcodes.tag_is_valid(tag)
     except Exception:  # langcodes raises on some malformed input instead of returning False

@@ -13,9 +13,12 @@ import hashlib
 import io
 import lzma
 import os
+import zlib
 from dataclasses import dataclass
 from pathlib import Path
 from typing import BinaryIO, Iterator
+
+import zstandard
 
 from .errors import InputError
 
@@ -61,10 +64,7 @@ def open_binary(path: Path, display: str) -> BinaryIO:
         if suffix in (".xz", ".lzma"):
             return lzma.open(path, "rb")
         if suffix == ".zst":
-            import zstandard
-
-            raw = open(path, "rb")
-            return io.BufferedReader(zstandard.ZstdDecompressor().stream_reader(raw, closefd=True))
+            return io.BufferedReader(_ZstdFrames(open(path, "rb")))
         return open(path, "rb")
     except FileNotFoundError:
         raise InputError(f"{display}: input file not found") from None
@@ -74,12 +74,55 @@ def open_binary(path: Path, display: str) -> BinaryIO:
         raise InputError(f"{display}: cannot open input: {exc.strerror or exc}") from None
 
 
+class _ZstdFrames(io.RawIOBase):
+    """Decompressed bytes of a file of one or more zstd frames. Unlike zstandard's stream reader,
+    which ends a cut-off file silently, it raises EOFError when the data stops inside a frame."""
+
+    def __init__(self, raw: BinaryIO):
+        self._raw = raw
+        self._context = zstandard.ZstdDecompressor()
+        self._frame = self._context.decompressobj()
+        self._in_frame = False
+        self._pending = b""
+
+    def readable(self) -> bool:
+        return True
+
+    def readinto(self, buffer) -> int:  # type: ignore[override]
+        while not self._pending:
+            data = self._raw.read(1 << 20)
+            if not data:
+                if self._in_frame:
+                    raise EOFError("zstd frame is incomplete")
+                return 0
+            out = []
+            while data:
+                if self._frame.eof:
+                    self._frame = self._context.decompressobj()
+                out.append(self._frame.decompress(data))
+                data = self._frame.unused_data if self._frame.eof else b""
+            self._in_frame = not self._frame.eof
+            self._pending = b"".join(out)
+        n = min(len(buffer), len(self._pending))
+        buffer[:n] = self._pending[:n]
+        self._pending = self._pending[n:]
+        return n
+
+    def close(self) -> None:
+        self._raw.close()
+        super().close()
+
+
+# What the codecs raise on corrupt data (zlib and zstandard errors are not OSErrors).
+_CORRUPT_DATA = (OSError, lzma.LZMAError, ValueError, zlib.error, zstandard.ZstdError)
+
+
 def _read(handle: BinaryIO, size: int, display: str) -> bytes:
     try:
         return handle.read(size)
     except EOFError:
         raise InputError(f"{display}: compressed input is truncated (unexpected end of data)") from None
-    except (OSError, lzma.LZMAError, ValueError) as exc:
+    except _CORRUPT_DATA as exc:
         name = type(exc).__name__
         raise InputError(f"{display}: cannot read input ({name}: {exc})") from None
 

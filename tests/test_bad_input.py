@@ -47,6 +47,17 @@ def _gzip_truncated() -> bytes:
     return data[: len(data) // 2]
 
 
+def _corrupted(data: bytes) -> bytes:
+    return data[:20] + bytes(b ^ 0x55 for b in data[20:40]) + data[40:]
+
+
+def _zstd_truncated() -> bytes:
+    import zstandard
+
+    data = zstandard.ZstdCompressor().compress(b"The tide turns.\n" * 2000)
+    return data[: len(data) // 2]
+
+
 ROWS = {
     "invalid-utf8-error": Row({"en/odd.txt": b"Good line.\nBad \xff byte.\n"},
                               error=r"en/odd.txt:2: invalid UTF-8 at byte 4 of the line \(byte value 0xff\); "
@@ -92,6 +103,10 @@ ROWS = {
                                             r"rebuild when it is stable"),
     "truncated-gzip": Row({"en/odd.txt.gz": _gzip_truncated()},
                           error=r"en/odd.txt.gz: compressed input is truncated \(unexpected end of data\)"),
+    "corrupt-gzip": Row({"en/odd.txt.gz": _corrupted(gzip.compress(b"The tide turns.\n" * 2000))},
+                        error=r"en/odd.txt.gz: cannot read input \(error: Error -3 while decompressing data: .*\)"),
+    "truncated-zstd": Row({"en/odd.txt.zst": _zstd_truncated()},
+                          error=r"en/odd.txt.zst: compressed input is truncated \(unexpected end of data\)"),
     "symlink-loop-file": Row(error=r"en/loop-a.txt: broken symbolic link or symbolic link loop "
                                    r"\(matched by 'en/\*' in \[languages.en\]\)"),
     "symlink-cycle-in-recursive-glob": Row(en="en/**/*.txt",

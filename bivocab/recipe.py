@@ -237,6 +237,8 @@ def load_recipe(path: str | os.PathLike[str], resolve_inputs: bool = True) -> Re
     build = r.table("build", {"name": str, "seed": int}, required=("name", "seed"))
     if not build["name"].strip():
         raise r.fail("build", 0, "name", "must not be empty")
+    if build["seed"] < 0:  # numpy's SeedSequence, which the mixing uses, takes no negative seed
+        raise r.fail("build", 0, "seed", "must be >= 0")
 
     languages = _read_languages(r, path)
     clean = CleanSpec(**r.table("clean", {

@@ -144,12 +144,12 @@ def read_blocks(source: InputFile, file_index: int, block_bytes: int | None = No
     carry = b""
     first = True
     pending_cr = False
+    bom = False  # removed, and not yet reported with a block (small reads may carry it along)
     with handle:
         while True:
             chunk = _read(handle, block_bytes, source.display)
             at_end = not chunk
             data = carry + chunk
-            bom = False
             if first and (len(data) >= len(BOM) or at_end):
                 first = False
                 if data.startswith(BOM):
@@ -184,6 +184,7 @@ def read_blocks(source: InputFile, file_index: int, block_bytes: int | None = No
                 complete = complete.replace(b"\r\n", b"\n").replace(b"\r", b"\n")
             count = complete.count(b"\n") + 1
             yield Block(file_index, line, complete, count, bom, cr + last_cr)
+            bom = False
             line += count
             if at_end:
                 break

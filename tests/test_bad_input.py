@@ -118,6 +118,8 @@ ROWS = {
                                     r"max_size, min_count, pad, unknown\)"),
     "recipe-wrong-type": Row(extra='[vocab]\nmin_count = "two"\n',
                              error=r"recipe.toml:\d+: \[vocab\] min_count: expected int, got str 'two'"),
+    "recipe-bad-value": Row(recipe=lambda t: t.replace("seed = 11", "seed = -1"),
+                            error=r"recipe.toml:3: \[build\] seed: must be >= 0"),
     "recipe-missing-table": Row(recipe=lambda t: t.replace('[build]\nname = "kellhaven-safety"\nseed = 11\n', ""),
                                 error=r"recipe.toml: missing table \[build\]"),
     "recipe-duplicate-condition": Row(extra='[[condition]]\nname = "shared"\npolicy = "fully-tagged"\n',

@@ -1,0 +1,51 @@
+"""What the fuzzers exercise: recipe parsing and input reading/cleaning/scanning. Each target
+accepts any input; it may end in a BivocabError (a clean one-line user error) and nothing else.
+Shared by the hypothesis properties (tests/test_fuzz_properties.py) and the atheris harness."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+from bivocab.errors import BivocabError
+from bivocab.manifest import canonical_json
+from bivocab.recipe import CleanSpec, SplitSpec, load_recipe, recipe_from_manifest
+from bivocab.scan import ScanTask, scan_block
+from bivocab.sources import InputFile, read_blocks
+from bivocab.splits import split_thresholds
+
+SUFFIXES = (".txt", ".gz", ".bz2", ".xz", ".zst")
+THRESHOLDS = split_thresholds(SplitSpec())
+
+
+def parse_recipe(text: bytes, workdir: Path) -> None:
+    """Parse a recipe; one that parses must come back unchanged from its build.json form
+    (bivocab verify rebuilds from that form)."""
+    path = workdir / "recipe.toml"
+    path.write_bytes(text)
+    try:
+        recipe = load_recipe(path, resolve_inputs=False)
+    except BivocabError:
+        return
+    resolved = json.loads(canonical_json(recipe.resolved()))
+    again = recipe_from_manifest({"recipe": resolved, "recipe_file": "recipe.toml"}, workdir)
+    assert json.loads(canonical_json(again.resolved())) == resolved
+
+
+def read_input(data: bytes, suffix: str, spec: CleanSpec, block_bytes: int, workdir: Path) -> int:
+    """Read, clean and scan one input file; check the arrays of every block agree. Returns the
+    number of sentences kept."""
+    path = workdir / f"input{suffix}"
+    path.write_bytes(data)
+    kept = 0
+    try:
+        for block in read_blocks(InputFile(path, path.name, "en"), 0, block_bytes=block_bytes):
+            result = scan_block(ScanTask(block, path.name, spec, 5, THRESHOLDS))
+            assert int(result.lengths.sum()) == len(result.tokens)
+            assert len(result.line_numbers) == len(result.lengths) == len(result.splits)
+            assert all(block.first_line <= n < block.first_line + block.line_count for n in result.line_numbers)
+            assert len(result.tokens) == 0 or int(result.tokens.max()) < len(result.local_types)
+            kept += len(result.lengths)
+    except BivocabError:
+        return kept
+    return kept

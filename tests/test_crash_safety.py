@@ -37,7 +37,7 @@ REPO = Path(__file__).resolve().parents[1]
 def project(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, dict[str, bytes]]:
     """A corpus, a recipe with ~10 train shards, and the reference bytes of its build."""
     root = tmp_path_factory.mktemp("crash")
-    write_corpus(root, sentences=300)
+    write_corpus(root, sentences=600)
     recipe = write_recipe(root, max_tokens=1000)
     build(recipe, root / "reference")
     return root, tree_bytes(root / "reference")

@@ -52,7 +52,7 @@ def test_malformed_text_is_rejected_without_an_exception(tag: str) -> None:
 
 
 def test_recipe_accepts_rfc5646_tags_as_language_keys(tmp_path: Path) -> None:
-    write_corpus(tmp_path, sentences=5, files_per_language=1)
+    write_corpus(tmp_path, sentences=5)
     recipe = write_recipe(tmp_path)
     text = recipe.read_text().replace("[languages.en]", '[languages."sr-Latn-RS"]')
     recipe.write_text(text.replace("[languages.de]", '[languages."de-CH-1901"]'))
@@ -60,7 +60,7 @@ def test_recipe_accepts_rfc5646_tags_as_language_keys(tmp_path: Path) -> None:
 
 
 def test_recipe_rejects_an_rfc5646_invalid_tag_naming_it(tmp_path: Path) -> None:
-    write_corpus(tmp_path, sentences=5, files_per_language=1)
+    write_corpus(tmp_path, sentences=5)
     recipe = write_recipe(tmp_path)
     recipe.write_text(recipe.read_text().replace("[languages.en]", '[languages."ar-a-aaa-b-bbb-a-ccc"]'))
     with pytest.raises(RecipeError, match="'ar-a-aaa-b-bbb-a-ccc' is not a valid BCP 47 language tag"):

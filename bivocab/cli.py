@@ -107,11 +107,13 @@ def probe_command(directory: Path, items: Path, ngram: int, as_json: bool, stric
 @click.option("--hashes-only", is_flag=True, help="Re-hash the files on disk against build.json; do not rebuild.")
 @click.option("--jobs", default=1, show_default=True, type=click.IntRange(min=1), help="Worker processes for the rebuild.")
 @click.option("--json", "as_json", is_flag=True, help="Print the report as JSON.")
-def verify_command(directory: Path, hashes_only: bool, jobs: int, as_json: bool) -> None:
+@click.option("--scratch", type=click.Path(file_okay=False, exists=True, path_type=Path),
+              help="Directory for the temporary rebuild (default: the system's temporary directory).")
+def verify_command(directory: Path, hashes_only: bool, jobs: int, as_json: bool, scratch: Path | None) -> None:
     """Rebuild DIRECTORY from its build.json and compare every file (exit 1 on any difference)."""
     from .verify import report_json, report_text, verify, verify_or_fail
 
-    report = verify(directory, hashes_only=hashes_only, jobs=jobs)
+    report = verify(directory, hashes_only=hashes_only, jobs=jobs, scratch=scratch)
     for warning in report.warnings:
         click.echo(f"warning: {warning}", err=True)
     click.echo(report_json(report) if as_json else report_text(report))

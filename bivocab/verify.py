@@ -81,11 +81,11 @@ def _quiet(_: str) -> None:
 
 
 def verify(out: str | os.PathLike[str], hashes_only: bool = False, jobs: int = 1,
-           progress: Progress = _quiet) -> VerifyReport:
+           progress: Progress = _quiet, scratch: str | os.PathLike[str] | None = None) -> VerifyReport:
     """Verify the build in ``out``. With ``hashes_only`` re-hash the files on disk against
     build.json; otherwise check the inputs' sha256 (stopping there if any changed), rebuild
-    into a temporary directory and compare every file. Raises :class:`CheckFailed` for an
-    incomplete directory, :class:`OutputError` when ``out`` is not a build."""
+    into a temporary directory (inside ``scratch`` if given) and compare every file. Raises
+    :class:`CheckFailed` for an incomplete directory, :class:`OutputError` when ``out`` is not a build."""
     out = Path(out)
     reason = incomplete_reason(out)
     if reason:
@@ -112,7 +112,7 @@ def verify(out: str | os.PathLike[str], hashes_only: bool = False, jobs: int = 1
     from .build import build  # verify is a client of the build, not a part of it
 
     progress("rebuild")
-    with tempfile.TemporaryDirectory(prefix="bivocab-verify-") as tmp:
+    with tempfile.TemporaryDirectory(prefix="bivocab-verify-", dir=scratch) as tmp:
         rebuilt_dir = Path(tmp) / "build"
         rebuilt = build(recipe, rebuilt_dir, jobs=jobs).manifest
         progress("compare")

@@ -211,3 +211,13 @@ def test_verify_does_not_touch_the_build_directory(built: Path) -> None:
     verify(built)
     assert {p: p.stat().st_mtime_ns for p in built.rglob("*")} == before
     assert not any(name.startswith(".bivocab-verify") for name in os.listdir(built))
+
+
+def test_rebuild_goes_to_the_scratch_directory_and_is_removed(built: Path, tmp_path: Path,
+                                                              monkeypatch: pytest.MonkeyPatch) -> None:
+    seen: list[Path] = []
+    real = build_module.build
+    monkeypatch.setattr(build_module, "build", lambda recipe, out, **kw: seen.append(Path(out)) or real(recipe, out, **kw))
+    assert verify(built, scratch=tmp_path).ok
+    assert seen and seen[0].parent.parent == tmp_path
+    assert list(tmp_path.iterdir()) == []

@@ -18,17 +18,20 @@ import numpy as np
 
 from . import __version__
 from .errors import BivocabError, OutputError
-from .manifest import (CONTROL_FILES, INCOMPLETE, LOCK, MANIFEST, WORK, atomic_write_text, build_lock,
-                       canonical_json, check_inputs_unchanged, checkpoint, environment, file_record,
+from .hygiene import prepare_hygiene
+from .manifest import (CONTROL_FILES, INCOMPLETE, LOCK, MANIFEST, WORK, atomic_open, atomic_write_text,
+                       build_lock, canonical_json, check_inputs_unchanged, checkpoint, environment, file_record,
                        fsync_dir, hash_inputs, read_manifest, remove_temp_files, sha256_file, write_error)
 from .mix import SplitOrder, mix_split
 from .recipe import SPLITS, Recipe, load_recipe
 from .scan import ScanResult, ScanTask, TypeTable, ordered_map, ragged_gather, scan_block
 from .segment import token_class
-from .shards import PROVENANCE_DTYPE, shard_stem, write_npy
 from .resume import ShardJournal, build_fingerprint
+from .shards import PROVENANCE_DTYPE, ShardWriter, shard_stem, write_npy
 from .sources import InputFile, read_blocks
 from .splits import split_thresholds
+from .subword import (SentenceText, SubwordCondition, build_subword_condition, model_path, tokenizer_path,
+                      unigram_tokenizer_json)
 from .vocab import Vocabulary, build_vocabulary, tokenizer_json, tsv_text, vocab_tsv
 
 
@@ -77,7 +80,7 @@ def _quiet(_: str) -> None:
 
 def input_files(recipe: Recipe) -> list[InputFile]:
     base = recipe.base_dir
-    return [InputFile(base / f, f, lang.tag) for lang in recipe.languages for f in lang.files]
+    return [InputFile(base / f, f, lang.tag, lang.read) for lang in recipe.languages for f in lang.files]
 
 
 def check_output_dir(out: Path, recipe: Recipe, force: bool) -> None:
@@ -259,8 +262,10 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
     writers = [_WorkArrays(work, tag) for tag in tags]
     lang_of_file = [tags.index(f.language) for f in files]
     per_file: list[Counter] = [Counter() for _ in files]
+    hygiene = prepare_hygiene(recipe, files, jobs)
     for result in ordered_map(scan_block, _scan_tasks(recipe, files), jobs):
         li = lang_of_file[result.file_index]
+        result = hygiene.filter_scan(result, li)
         scan = scans[li]
         per_file[result.file_index].update(result.counters)
         lut = scan.table.merge(result.local_types)
@@ -288,31 +293,44 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
 
     progress("vocabulary")
     surfaces = [scan.table.surfaces for scan in scans]
-    vocabs = [build_vocabulary(cond, tags, surfaces, [scan.split_counts[0] for scan in scans])
+    subwords: dict[str, SubwordCondition] = {}
+    if any(cond.units != "word" for cond in recipe.conditions):
+        progress("subword models")
+        texts = [SentenceText(work / f"{tag}.text", scan.sentences) for tag, scan in zip(tags, scans)]
+        subwords = {cond.name: build_subword_condition(cond, recipe, texts, [a["splits"] for a in arrays], work, jobs)
+                    for cond in recipe.conditions if cond.units != "word"}
+    vocabs = [subwords[cond.name].vocab if cond.name in subwords else
+              build_vocabulary(cond, tags, surfaces, [scan.split_counts[0] for scan in scans])
               for cond in recipe.conditions]
 
+    journal.bind_vocabularies([vocab_tsv(v).encode("utf-8") for v in vocabs]
+                              + [model for sub in subwords.values() for model in sub.models])
     progress("shards")
     written: list[str] = []
     shard_paths: dict[str, dict[str, list[str]]] = {c.name: {} for c in recipe.conditions}
     stats = {c.name: {s: [0, 0, [0] * len(tags), [0] * len(tags)] for s in SPLITS} for c in recipe.conditions}
+    mixing: dict[str, dict] = {}
+    shard_writer = ShardWriter(out, recipe.shards, tags, [f.display for f in files])
     starts = [np.concatenate(([0], np.cumsum(a["lengths"])[:-1])).astype(np.int64) if len(a["lengths"])
               else np.zeros(0, np.int64) for a in arrays]
     for si, split in enumerate(SPLITS):
         rows = [np.flatnonzero(np.asarray(a["splits"]) == si) for a in arrays]
-        order = mix_split(si, rows, recipe.mix, recipe.seed)
+        order = mix_split(si, rows, recipe.mix, recipe.seed, [a["lengths"] for a in arrays])
+        if order.sampling is not None:
+            mixing[split] = order.sampling
         for cond in recipe.conditions:
             shard_paths[cond.name][split] = []
         for shard_index, members in enumerate(_shard_members(order, arrays, recipe.shards.max_tokens)):
             stem = shard_stem(split, shard_index)
-            paths = [f"provenance/{stem}.npy"] + [f"{c.name}/{stem}.{suffix}.npy" for c in recipe.conditions
-                                                  for suffix in ("tokens", "offsets", "langs")]
+            paths = [f"provenance/{stem}.npy"] + [p for c in recipe.conditions
+                                                  for p in shard_writer.paths(f"{c.name}/{stem}")]
             for cond in recipe.conditions:
                 shard_paths[cond.name][split].append(f"{cond.name}/{stem}")
             written += paths
             shard_stats = journal.reusable(stem, paths)
             if shard_stats is None:
-                shard_stats = _write_shard(out, recipe, vocabs, stem, order.langs[members], order.rows[members],
-                                           arrays, starts)
+                shard_stats = _write_shard(shard_writer, recipe, vocabs, subwords, stem, order.langs[members],
+                                           order.rows[members], arrays, starts)
                 journal.record(stem, paths, shard_stats)
             for cond in recipe.conditions:
                 _add_stat(stats[cond.name][split], shard_stats[cond.name])
@@ -322,6 +340,17 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
         path = f"{cond.name}/vocab.tsv"
         atomic_write_text(out / path, vocab_tsv(vocab))
         written.append(path)
+        if cond.name in subwords:
+            for li, (tag, model) in enumerate(zip(tags, subwords[cond.name].models)):
+                path = model_path(cond.name, tag)
+                with atomic_open(out / path) as handle:
+                    handle.write(model)
+                written.append(path)
+                if cond.units == "unigram":
+                    path = tokenizer_path(cond.name, tag)
+                    atomic_write_text(out / path, unigram_tokenizer_json(model, vocab, li, recipe.clean))
+                    written.append(path)
+            continue
         for li, tag in enumerate(tags):
             path = f"{cond.name}/tokenizer.{tag}.json"
             atomic_write_text(out / path, tokenizer_json(vocab, li, recipe.clean))
@@ -337,12 +366,19 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
         for cond, vocab in zip(recipe.conditions, vocabs))
     manifest = _manifest(recipe, out, files, hashes, per_file, scans, vocabs, shard_paths, written, summaries,
                          journal.records)
+    for name, sub in subwords.items():
+        entry = manifest["conditions"][name]
+        entry.update(models={t: model_path(name, t) for t in tags}, subword=sub.record,
+                     tokenizers={t: tokenizer_path(name, t) for t in tags} if sub.record["units"] == "unigram" else {})
+    manifest["mixing"] = mixing
+    manifest["hygiene"] = hygiene.report()
     return BuildResult(out, manifest, summaries, tuple(journal.reused),
                        len(journal.reused) + len(journal.written))
 
 
-def _write_shard(out: Path, recipe: Recipe, vocabs: list[Vocabulary], stem: str, langs: np.ndarray,
-                 rows_here: np.ndarray, arrays: list[dict[str, np.ndarray]], starts: list[np.ndarray]) -> dict:
+def _write_shard(writer: ShardWriter, recipe: Recipe, vocabs: list[Vocabulary],
+                 subwords: dict[str, SubwordCondition], stem: str, langs: np.ndarray, rows_here: np.ndarray,
+                 arrays: list[dict[str, np.ndarray]], starts: list[np.ndarray]) -> dict:
     """Write one shard (provenance, then every condition); return its statistics per condition."""
     prov = np.empty(len(langs), dtype=PROVENANCE_DTYPE)
     gathered = []
@@ -354,11 +390,14 @@ def _write_shard(out: Path, recipe: Recipe, vocabs: list[Vocabulary], stem: str,
         lengths = np.asarray(arrays[li]["lengths"])[r]
         types = np.asarray(arrays[li]["tokens"])[ragged_gather(starts[li][r], lengths)]
         gathered.append((mask, lengths, types))
-    write_npy(out / f"provenance/{stem}.npy", prov)
+    write_npy(writer.out / f"provenance/{stem}.npy", prov)
     shard_stats = {}
     for cond, vocab in zip(recipe.conditions, vocabs):
+        sub = subwords.get(cond.name)
+        here = gathered if sub is None else [
+            (mask, *sub.gather(li, rows_here[mask])) for li, (mask, _, _) in enumerate(gathered)]
         stat = shard_stats[cond.name] = [0, 0, [0] * len(recipe.tags), [0] * len(recipe.tags)]
-        _write_condition_shard(out, cond.name, stem, vocab, langs, gathered, stat)
+        _write_condition_shard(writer, cond.name, stem, vocab, langs, here, stat, prov)
     return shard_stats
 
 
@@ -387,8 +426,9 @@ def _shard_members(order: SplitOrder, arrays: list[dict[str, np.ndarray]], max_t
     yield from np.split(np.arange(len(lengths)), cuts)
 
 
-def _write_condition_shard(out: Path, condition: str, stem: str, vocab: Vocabulary, langs: np.ndarray,
-                           gathered: list[tuple[np.ndarray, np.ndarray, np.ndarray]], stat: list) -> list[str]:
+def _write_condition_shard(writer: ShardWriter, condition: str, stem: str, vocab: Vocabulary, langs: np.ndarray,
+                           gathered: list[tuple[np.ndarray, np.ndarray, np.ndarray]], stat: list,
+                           provenance: np.ndarray) -> list[str]:
     eos = vocab.eos_ids is not None
     n = len(langs)
     sent_len = np.empty(n, dtype=np.int64)
@@ -407,12 +447,7 @@ def _write_condition_shard(out: Path, condition: str, stem: str, vocab: Vocabula
         stat[3][li] += len(ids)
     stat[0] += n
     stat[1] += int(sum(len(t) for _, _, t in gathered))
-    paths = []
-    for suffix, array in (("tokens", tokens), ("offsets", offsets), ("langs", langs.astype(np.uint8))):
-        path = f"{condition}/{stem}.{suffix}.npy"
-        write_npy(out / path, array)
-        paths.append(path)
-    return paths
+    return writer.write(f"{condition}/{stem}", tokens, offsets, langs.astype(np.uint8), provenance)
 
 
 def types_tsv(scan: LanguageScan) -> str:
@@ -450,7 +485,7 @@ def _manifest(recipe: Recipe, out: Path, files: list[InputFile], hashes: dict[st
     conditions = {}
     for cond, vocab, summary in zip(recipe.conditions, vocabs, summaries):
         conditions[cond.name] = {
-            "policy": cond.policy, "classes": cond.classes, "vocab": f"{cond.name}/vocab.tsv",
+            "policy": cond.policy, "units": cond.units, "classes": cond.classes, "vocab": f"{cond.name}/vocab.tsv",
             "size": len(vocab), "specials": vocab.special_count,
             "tokenizers": {t: f"{cond.name}/tokenizer.{t}.json" for t in recipe.tags},
             "dtype": vocab.dtype.name, "shards": shard_paths[cond.name],

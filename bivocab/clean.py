@@ -87,7 +87,7 @@ def _decode(block: Block, spec: CleanSpec, display: str, counters: Counter) -> l
     except UnicodeDecodeError as exc:
         if spec.invalid_utf8 == "error":
             line_start = block.data.rfind(b"\n", 0, exc.start) + 1
-            line = block.first_line + block.data.count(b"\n", 0, exc.start)
+            line = block.line_number(block.data.count(b"\n", 0, exc.start))
             raise InputError(
                 f"{display}:{line}: invalid UTF-8 at byte {exc.start - line_start} of the line "
                 f"(byte value 0x{block.data[exc.start]:02x}); set [clean] invalid_utf8 = "
@@ -109,7 +109,10 @@ def _decode(block: Block, spec: CleanSpec, display: str, counters: Counter) -> l
 def clean_block(block: Block, spec: CleanSpec, display: str) -> CleanLines:
     """Decode and clean the lines of one block (see the module docstring for the steps)."""
     counters: Counter = Counter()
-    counters["lines_read"] += block.line_count
+    counters["lines_read"] += block.line_count if block.source_lines is None else block.source_lines
+    counters.update(dict(block.counters))
+    if not block.line_count:
+        return CleanLines([], [], counters)
     if block.bom_removed:
         counters["byte_order_marks_removed"] += 1
     if block.cr_line_ends:
@@ -138,7 +141,7 @@ def clean_block(block: Block, spec: CleanSpec, display: str) -> CleanLines:
             counters["long_lines_kept"] += 1
         changed += text != raw
         kept.append(text)
-        numbers.append(block.first_line + offset)
+        numbers.append(block.line_number(offset))
     if changed:
         counters["lines_changed_by_cleaning"] += changed
     return CleanLines(kept, numbers, counters)

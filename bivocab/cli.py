@@ -102,6 +102,29 @@ def probe_command(directory: Path, items: Path, ngram: int, as_json: bool, stric
                           f"{', '.join(failing)}")
 
 
+@main.command()
+@click.argument("directory", type=click.Path(path_type=Path))
+@click.option("--lexicon", "lexicons", multiple=True, metavar="TAG=FILE",
+              help="Word list of one language (one word per line); marks attested homographs. Repeatable.")
+@click.option("--translations", type=click.Path(dir_okay=False, path_type=Path),
+              help="TSV of word pairs (language A word, language B word) for translation labels.")
+@click.option("--top", default=20, show_default=True, type=click.IntRange(min=1),
+              help="Rows of the top lists in summary.json and on the terminal.")
+@click.option("--json", "as_json", is_flag=True, help="Print summary.json instead of the readable summary.")
+@click.option("--quiet", is_flag=True, help="Print nothing but errors and the --json output.")
+def audit(directory: Path, lexicons: tuple[str, ...], translations: Path | None, top: int, as_json: bool,
+          quiet: bool) -> None:
+    """Overlap, homograph and coverage statistics of the build in DIRECTORY, written to DIRECTORY/audit/."""
+    from .audit import audit_text, parse_lexicon_options, run_audit
+    from .manifest import canonical_json
+
+    show = (lambda stage: click.echo(f"[{stage}]", err=True)) if not quiet and sys.stderr.isatty() else (lambda _: None)
+    result = run_audit(directory, parse_lexicon_options(lexicons), translations, top, show)
+    if quiet and not as_json:
+        return
+    click.echo(canonical_json(result.summary) if as_json else audit_text(result), nl=not as_json)
+
+
 @main.command(name="verify")
 @click.argument("directory", type=click.Path(file_okay=False, path_type=Path))
 @click.option("--hashes-only", is_flag=True, help="Re-hash the files on disk against build.json; do not rebuild.")

@@ -23,6 +23,7 @@ from typing import IO, Any, Iterable, Iterator
 import numpy as np
 
 from .errors import InputError, OutputError
+from .sources import file_sha256
 
 MANIFEST = "build.json"
 LOCK = ".bivocab.lock"
@@ -32,12 +33,16 @@ INCOMPLETE = ".bivocab-incomplete"
 # Completed shards of the running build, one JSON line each (see bivocab.resume).
 JOURNAL = ".bivocab-journal.jsonl"
 CONTROL_FILES = frozenset({MANIFEST, LOCK, INCOMPLETE, JOURNAL})
+# What `bivocab audit` and `bivocab probe` write into a build directory: analyses of the build,
+# not part of it (not in build.json, not compared by verify).
+ANALYSIS_DIRS = ("audit", "probe")
 _TEMP_RE = re.compile(r"^\..+\.tmp-\d+$")
 # Test hook: a build pauses at the named point (fnmatch pattern) so a test can kill it there.
 PAUSE_ENV = "BIVOCAB_TEST_PAUSE"
 PAUSE_SECONDS = 120
 # Libraries whose versions can change what a build writes.
-OUTPUT_LIBRARIES = ("bivocab", "numpy", "regex", "tokenizers", "pyarrow", "langcodes", "zstandard")
+OUTPUT_LIBRARIES = ("bivocab", "numpy", "regex", "tokenizers", "pyarrow", "langcodes", "zstandard",
+                    "sentencepiece", "protobuf")
 
 
 def sha256_file(path: Path) -> str:
@@ -219,12 +224,13 @@ class InputState:
 
 
 def hash_inputs(files: Iterable[Any]) -> dict[str, InputState]:
-    """sha256 and stat of every input (``InputFile``), keyed by its display path."""
+    """sha256 and stat of every input (``InputFile``; a saved dataset directory is hashed
+    member by member), keyed by its display path."""
     states = {}
     for source in files:
         try:
             before = os.stat(source.path)
-            digest = sha256_file(source.path)
+            digest = file_sha256(source.path)
         except FileNotFoundError:
             raise InputError(f"{source.display}: input file not found") from None
         except OSError as exc:

@@ -28,11 +28,25 @@ POLICIES: dict[str, dict[str, str]] = {
 SPLITS: tuple[str, ...] = ("train", "valid", "test")
 
 
+INPUT_FORMATS: tuple[str, ...] = ("auto", "text", "jsonl", "csv", "tsv", "parquet", "datasets")
+
+
+@dataclass(frozen=True)
+class ReadSpec:
+    """How a language's input files are read (docs/inputs.md)."""
+
+    format: str = "auto"              # auto (by file extension) | text | jsonl | csv | tsv | parquet | datasets
+    field: str = "text"               # the JSON key / column holding the sentence (row formats)
+    split_sentences: bool = False     # split paragraph-per-line input into sentences (rule-based)
+    dataset_split: str = ""           # split of a saved datasets.DatasetDict ("" = its only split)
+
+
 @dataclass(frozen=True)
 class LanguageSpec:
     tag: str
     inputs: tuple[str, ...]           # globs as written, relative to the recipe directory
     files: tuple[str, ...] = ()       # resolved, sorted, relative to the recipe directory
+    read: ReadSpec = field(default_factory=ReadSpec)
 
 
 @dataclass(frozen=True)
@@ -61,15 +75,64 @@ class VocabSpec:
     pad: bool = True                  # reserve id 0 for <pad>
 
 
+MIX_ORDERS: tuple[str, ...] = ("shuffled", "alternating", "blocked")
+BALANCE_UNITS: tuple[str, ...] = ("none", "sentences", "tokens")
+
+
 @dataclass(frozen=True)
 class MixSpec:
-    order: str = "shuffled"           # shuffled
+    """Order and balance of the two languages in each split (docs/mixing.md)."""
+
+    order: str = "shuffled"           # shuffled | alternating | blocked
+    within_language: str = "shuffled"  # alternating/blocked: shuffled (seeded) | input order
+    balance: str = "none"             # none | sentences | tokens: the unit of the sizes n_i
+    alpha: float = 0.0                # q_i ∝ p_i^alpha; 0 = equal sizes, 1 = as found
+    resample: str = "down"            # down (drop from larger) | up (repeat the smaller)
+    balance_splits: tuple[str, ...] = ("train",)
+
+
+SHARD_FORMATS: tuple[str, ...] = ("npy", "parquet", "npy+parquet")
 
 
 @dataclass(frozen=True)
 class ShardSpec:
-    format: str = "npy"
+    format: str = "npy"               # npy | parquet | npy+parquet (both, same sentences)
     max_tokens: int = 1_000_000       # a shard is closed after the sentence that reaches this
+
+
+SUBWORD_UNITS: tuple[str, ...] = ("unigram", "bpe")
+
+
+@dataclass(frozen=True)
+class SubwordSpec:
+    """Subword model of a condition (docs/subword.md). Exactly one of ``size`` and
+    ``size_per_language`` is set (0 = unset)."""
+
+    size: int = 0                     # entries of the condition's vocabulary, specials included
+    size_per_language: int = 0        # pieces trained per language (separate models only)
+    engine: str = "sentencepiece"
+    sample_sentences: int = 0         # training sentences per language (0 = the whole train split)
+    sample_alpha: float = 1.0         # joint model: language shares q_i ~ p_i^alpha (1 = as available)
+    character_coverage: float = 1.0
+    byte_fallback: bool = True        # unseen characters become byte pieces instead of <unk>
+    max_sentence_bytes: int = 65536   # longer train sentences are left out of the sample (counted)
+    train_threads: int = 1            # fixed, so the model does not depend on --jobs or the machine
+    exact_size: bool = True           # false: sentencepiece may stop short of the size on a small corpus
+
+
+@dataclass(frozen=True)
+class HygieneSpec:
+    """Corpus hygiene steps applied after cleaning, each off by default (docs/inputs.md)."""
+
+    duplicates: str = "keep"          # keep | drop (later exact copies within a language)
+    cross_language: str = "off"       # off | keep (report only) | drop-both | keep-first
+    foreign: str = "off"              # off | report | drop: sentences that look like the other language
+    foreign_min_chars: int = 20       # shorter sentences are never judged foreign
+    foreign_margin: float = 0.1       # mean log-likelihood ratio per n-gram needed to flag
+    examples: int = 10                # examples per finding recorded in build.json
+    exclude_items: tuple[str, ...] = ()   # item files (CSV/TSV) whose sentences are excluded
+    exclude_column: str = "sentence"  # the column of the item files holding the sentence
+    exclude_from: str = "train"       # train | all: the splits the items are excluded from
 
 
 @dataclass(frozen=True)
@@ -80,6 +143,8 @@ class ConditionSpec:
     share: tuple[str, ...] = ()       # spellings forced to one entry
     separate: tuple[str, ...] = ()    # spellings forced to one entry per language
     vocab: VocabSpec = field(default_factory=VocabSpec)
+    units: str = "word"               # word | unigram | bpe
+    subword: SubwordSpec | None = None  # set when units is not "word"
 
 
 @dataclass(frozen=True)
@@ -94,6 +159,7 @@ class Recipe:
     mix: MixSpec
     shards: ShardSpec
     conditions: tuple[ConditionSpec, ...]
+    hygiene: HygieneSpec = field(default_factory=HygieneSpec)
 
     @property
     def base_dir(self) -> Path:
@@ -185,6 +251,11 @@ def _describe(val: Any) -> str:
 
 
 _CLASS_CHOICE = ("shared", "tagged")
+_SUBWORD_KEYS: dict[str, Any] = {
+    "size": int, "size_per_language": int, "engine": ("sentencepiece",), "sample_sentences": int,
+    "sample_alpha": float, "character_coverage": float, "byte_fallback": bool,
+    "max_sentence_bytes": int, "train_threads": int, "exact_size": bool,
+}
 _VOCAB_KEYS: dict[str, Any] = {
     "max_size": int, "min_count": int, "unknown": ("shared", "per-language"),
     "eos": ("shared", "per-language", "none"), "pad": bool,
@@ -228,7 +299,7 @@ def load_recipe(path: str | os.PathLike[str], resolve_inputs: bool = True) -> Re
         raise RecipeError(f"{path}: invalid TOML: {exc}") from None
 
     r = _Reader(path, text, data)
-    top_allowed = {"build", "languages", "clean", "splits", "vocab", "mix", "shards", "condition"}
+    top_allowed = {"build", "languages", "clean", "splits", "vocab", "mix", "shards", "condition", "hygiene"}
     for key in data:
         if key not in top_allowed:
             raise r.fail(key, 0, "", f"unknown table (known tables: {', '.join(sorted(top_allowed))})")
@@ -257,15 +328,32 @@ def load_recipe(path: str | os.PathLike[str], resolve_inputs: bool = True) -> Re
         raise r.fail("splits", 0, "train", "must be > 0: the vocabulary is counted on train")
 
     vocab = _vocab_spec(r, "vocab", 0, r.table("vocab", _VOCAB_KEYS), VocabSpec())
-    mix = MixSpec(**r.table("mix", {"order": ("shuffled",)}))
-    shards = ShardSpec(**r.table("shards", {"format": ("npy",), "max_tokens": int}))
+    mix = MixSpec(**r.table("mix", {"order": MIX_ORDERS, "within_language": ("shuffled", "input"),
+                                    "balance": BALANCE_UNITS, "alpha": float, "resample": ("down", "up"),
+                                    "balance_splits": "strings"}))
+    if mix.order == "shuffled" and mix.within_language != "shuffled":
+        raise r.fail("mix", 0, "within_language", 'applies to order = "alternating" or "blocked" only')
+    if not 0.0 <= mix.alpha <= 1.0:
+        raise r.fail("mix", 0, "alpha", f"must be between 0 and 1, got {mix.alpha}")
+    for split in mix.balance_splits:
+        if split not in SPLITS:
+            raise r.fail("mix", 0, "balance_splits", f"unknown split {split!r} (splits: {', '.join(SPLITS)})")
+    shards = ShardSpec(**r.table("shards", {"format": SHARD_FORMATS, "max_tokens": int}))
     if shards.max_tokens <= 0:
         raise r.fail("shards", 0, "max_tokens", "must be > 0")
+
+    hygiene = HygieneSpec(**r.table("hygiene", {
+        "duplicates": ("keep", "drop"), "cross_language": ("off", "keep", "drop-both", "keep-first"),
+        "foreign": ("off", "report", "drop"), "foreign_min_chars": int, "foreign_margin": float,
+        "examples": int, "exclude_items": "strings", "exclude_column": str, "exclude_from": ("train", "all")}))
+    for key in ("foreign_min_chars", "examples"):
+        if getattr(hygiene, key) < 0:
+            raise r.fail("hygiene", 0, key, "must be >= 0")
 
     conditions = _read_conditions(r, path, vocab)
     recipe = Recipe(path=path, name=build["name"], seed=build["seed"], languages=languages,
                     clean=clean, splits=splits, vocab=vocab, mix=mix, shards=shards,
-                    conditions=conditions)
+                    conditions=conditions, hygiene=hygiene)
     if resolve_inputs:
         recipe = resolve_recipe_inputs(recipe)
     return recipe
@@ -289,10 +377,15 @@ def _read_languages(r: _Reader, path: str) -> tuple[LanguageSpec, ...]:
         table = f"languages.{tag}"
         if not is_valid_language_tag(tag):
             raise r.fail(table, 0, "", f"'{tag}' is not a valid BCP 47 language tag")
-        values = r.table(table, {"inputs": "strings"}, value=spec, required=("inputs",))
-        if not values["inputs"]:
+        values = r.table(table, {"inputs": "strings", "format": INPUT_FORMATS, "field": str,
+                                 "split_sentences": bool, "dataset_split": str},
+                         value=spec, required=("inputs",))
+        inputs = values.pop("inputs")
+        if not inputs:
             raise r.fail(table, 0, "inputs", "must list at least one file or glob")
-        out.append(LanguageSpec(tag=tag, inputs=values["inputs"]))
+        if "field" in values and not values["field"]:
+            raise r.fail(table, 0, "field", "must not be empty")
+        out.append(LanguageSpec(tag=tag, inputs=inputs, read=ReadSpec(**values)))
     if len(out) != 2:
         raise RecipeError(f"{path}: [languages] must define exactly two languages, found {len(out)}")
     if out[0].tag.lower() == out[1].tag.lower():
@@ -307,7 +400,8 @@ def _read_conditions(r: _Reader, path: str, vocab: VocabSpec) -> tuple[Condition
     if not isinstance(raw, list):
         raise r.fail("condition", 0, "", "must be written as [[condition]] (an array of tables)")
     allowed = {"name": str, "policy": tuple(POLICIES), "classes": "table",
-               "share": "strings", "separate": "strings", **_VOCAB_KEYS}
+               "share": "strings", "separate": "strings", **_VOCAB_KEYS,
+               "units": ("word", *SUBWORD_UNITS), **_SUBWORD_KEYS}
     out: list[ConditionSpec] = []
     seen: dict[str, int] = {}
     for index, spec in enumerate(raw):
@@ -332,12 +426,54 @@ def _read_conditions(r: _Reader, path: str, vocab: VocabSpec) -> tuple[Condition
             raise r.fail("condition", index, "separate", f"spelling {both[0]!r} is both in share and separate")
         cond_vocab = _vocab_spec(r, "condition", index,
                                  {k: v for k, v in values.items() if k in _VOCAB_KEYS}, vocab)
+        units = values.get("units", "word")
+        subword = _subword_spec(r, index, values, units, classes)
         out.append(ConditionSpec(name=name, policy=values["policy"], classes=classes,
                                  share=tuple(sorted(set(share))), separate=tuple(sorted(set(separate))),
-                                 vocab=cond_vocab))
+                                 vocab=cond_vocab, units=units, subword=subword))
     if not out:
         raise RecipeError(f"{path}: at least one [[condition]] is needed")
     return tuple(out)
+
+
+def _subword_spec(r: _Reader, index: int, values: dict[str, Any], units: str,
+                  classes: dict[str, str]) -> SubwordSpec | None:
+    given = [k for k in _SUBWORD_KEYS if k in values]
+    if units == "word":
+        if given:
+            raise r.fail("condition", index, given[0], "applies to subword units only (set units = \"unigram\" or \"bpe\")")
+        return None
+    for key in ("share", "separate", "max_size", "min_count"):
+        if key in values:
+            raise r.fail("condition", index, key, f"applies to units = \"word\" only (subword sizes are set with size or size_per_language)")
+    spec = SubwordSpec(**{k: values[k] for k in given})
+    joint = all(choice == "shared" for choice in classes.values())
+    if bool(spec.size) == bool(spec.size_per_language):
+        raise r.fail("condition", index, "", "a subword condition needs exactly one of size and size_per_language")
+    if spec.size < 0 or spec.size_per_language < 0:
+        raise r.fail("condition", index, "size" if spec.size < 0 else "size_per_language", "must be > 0")
+    if joint and spec.size_per_language:
+        raise r.fail("condition", index, "size_per_language",
+                     "a shared condition trains one joint model: set its total with size")
+    if not joint and "sample_alpha" in values:
+        raise r.fail("condition", index, "sample_alpha",
+                     "applies to the joint model of a shared condition (separate models train on one language each)")
+    if spec.sample_sentences < 0:
+        raise r.fail("condition", index, "sample_sentences", "must be >= 0 (0 = the whole train split)")
+    if not 0 <= spec.sample_alpha <= 1:
+        raise r.fail("condition", index, "sample_alpha", "must be between 0 (equal shares) and 1 (shares as available)")
+    if not 0.9 <= spec.character_coverage <= 1.0:
+        raise r.fail("condition", index, "character_coverage", "must be between 0.9 and 1.0")
+    if spec.max_sentence_bytes < 16:
+        raise r.fail("condition", index, "max_sentence_bytes", "must be >= 16")
+    if not 1 <= spec.train_threads <= 256:
+        raise r.fail("condition", index, "train_threads", "must be between 1 and 256")
+    return spec
+
+
+def is_saved_dataset(path: str) -> bool:
+    """A directory written by ``datasets`` ``save_to_disk`` (a Dataset or a DatasetDict)."""
+    return any(os.path.exists(os.path.join(path, name)) for name in ("state.json", "dataset_dict.json"))
 
 
 def resolve_recipe_inputs(recipe: Recipe) -> Recipe:
@@ -353,7 +489,9 @@ def resolve_recipe_inputs(recipe: Recipe) -> Recipe:
                 matches = sorted(glob.glob(absolute, recursive=True))
             except (OSError, RecursionError) as exc:
                 raise InputError(f"{recipe.path}: [languages.{lang.tag}] inputs: cannot expand {pattern!r}: {exc}") from None
-            matches = [m for m in matches if not os.path.isdir(m)]
+            # A directory is an input only as a saved `datasets` dataset.
+            matches = [m for m in matches if not os.path.isdir(m) or lang.read.format in ("auto", "datasets")
+                       and is_saved_dataset(m)]
             if not matches:
                 raise InputError(f"{recipe.path}: [languages.{lang.tag}] inputs: {pattern!r} matches no file")
             for m in matches:
@@ -369,7 +507,7 @@ def resolve_recipe_inputs(recipe: Recipe) -> Recipe:
                 seen[real] = rel
                 if rel not in files:
                     files.append(rel)
-        languages.append(LanguageSpec(tag=lang.tag, inputs=lang.inputs, files=tuple(files)))
+        languages.append(LanguageSpec(tag=lang.tag, inputs=lang.inputs, files=tuple(files), read=lang.read))
     return Recipe(**{**{f: getattr(recipe, f) for f in recipe.__dataclass_fields__}, "languages": tuple(languages)})
 
 
@@ -382,9 +520,12 @@ name = "my-study"        # names the build; recorded in build.json
 seed = 1                 # the only source of randomness (splits, mixing)
 
 # Exactly two languages; each key is a BCP 47 tag. Inputs are globs of UTF-8 text files,
-# one sentence per line (.txt, or compressed .gz / .bz2 / .xz / .zst).
+# one sentence per line (.txt, or compressed .gz / .bz2 / .xz / .zst), or of row formats.
 [languages.en]
 inputs = ["corpus/en/*.txt"]
+# format = "auto"        # auto (by extension) | text | jsonl | csv | tsv | parquet | datasets
+# field = "text"         # the JSON key / column with the sentence (row formats)
+# split_sentences = false  # true: split paragraph-per-line text into sentences (rule-based)
 
 [languages.de]
 inputs = ["corpus/de/*.txt"]
@@ -409,11 +550,22 @@ unknown = "shared"       # shared: one <unk>; per-language: <unk:en>, <unk:de>
 eos = "shared"           # shared | per-language | none: the end-of-sentence token after each sentence
 pad = true               # reserve id 0 for <pad>
 
+[hygiene]                # each step is optional and counted in build.json
+duplicates = "keep"      # keep | drop: later exact copies within a language
+cross_language = "off"   # off | keep (report) | drop-both | keep-first: same sentence in both corpora
+foreign = "off"          # off | report | drop: sentences that look like the other language
+# exclude_items = ["items.tsv"]   # stimulus files (CSV/TSV); their sentences are kept out of training
+# exclude_column = "sentence"
+# exclude_from = "train"          # train | all
+
 [mix]
-order = "shuffled"       # the two languages are shuffled together (seeded), same order in every condition
+order = "shuffled"       # shuffled | alternating | blocked; the same order in every condition
+balance = "none"         # none | sentences | tokens: resample the languages (train split by default)
+alpha = 0.0              # with balance: target share q_i ∝ p_i^alpha (0 = equal, 1 = as found)
+resample = "down"        # down: drop from the larger language | up: repeat the smaller one
 
 [shards]
-format = "npy"
+format = "npy"           # npy | parquet | npy+parquet
 max_tokens = 1000000     # tokens per shard file (a shard ends after the sentence that reaches it)
 
 # One [[condition]] per vocabulary-sharing condition, all built from the same corpus.
@@ -432,6 +584,15 @@ policy = "fully-tagged"
 # classes = { number = "shared" }   # override the policy for single token classes
 # share = ["Hotel", "Radio"]        # force these spellings to one shared entry
 # separate = ["also", "bald"]       # force these spellings to one entry per language
+
+# A subword condition trains sentencepiece models on a seeded sample of the train split
+# (docs/subword.md): one joint model under "shared", one model per language otherwise.
+# [[condition]]
+# name = "joint-unigram"
+# policy = "shared"
+# units = "unigram"                 # word (default) | unigram | bpe
+# size = 8000                       # vocabulary entries, specials included
+# sample_alpha = 0.5                # exponent-smoothed language shares of the joint sample
 '''
 
 
@@ -443,10 +604,16 @@ def recipe_from_manifest(manifest: dict[str, Any], out: str | os.PathLike[str]) 
     data = manifest["recipe"]
     recipe_path = os.path.normpath(os.path.join(str(out), manifest["recipe_file"]))
     conditions = tuple(ConditionSpec(**{**c, "share": tuple(c["share"]), "separate": tuple(c["separate"]),
-                                        "vocab": VocabSpec(**c["vocab"])}) for c in data["conditions"])
-    languages = tuple(LanguageSpec(tag=l["tag"], inputs=tuple(l["inputs"]), files=tuple(l["files"]))
+                                        "vocab": VocabSpec(**c["vocab"]),
+                                        "subword": SubwordSpec(**c["subword"]) if c.get("subword") else None})
+                       for c in data["conditions"])
+    languages = tuple(LanguageSpec(tag=l["tag"], inputs=tuple(l["inputs"]), files=tuple(l["files"]),
+                                   read=ReadSpec(**l.get("read", {})))
                       for l in data["languages"])
     return Recipe(path=recipe_path, name=data["name"], seed=data["seed"], languages=languages,
                   clean=CleanSpec(**data["clean"]), splits=SplitSpec(**data["splits"]),
-                  vocab=VocabSpec(**data["vocab"]), mix=MixSpec(**data["mix"]),
-                  shards=ShardSpec(**data["shards"]), conditions=conditions)
+                  vocab=VocabSpec(**data["vocab"]),
+                  mix=MixSpec(**{**data["mix"], "balance_splits": tuple(data["mix"].get("balance_splits", ("train",)))}),
+                  shards=ShardSpec(**data["shards"]), conditions=conditions,
+                  hygiene=HygieneSpec(**{**data.get("hygiene", {}),
+                                         "exclude_items": tuple(data.get("hygiene", {}).get("exclude_items", ()))}))

@@ -31,7 +31,13 @@ def plan_text(recipe: Recipe, inputs: list[tuple[str, str, int, int]]) -> str:
                f"tokens per sentence {c.min_tokens}..{c.max_tokens or 'any'}, max chars {c.max_chars or 'any'}")
     s = recipe.splits
     out.append(f"splits: train {s.train:g} / valid {s.valid:g} / test {s.test:g} (by seeded hash of the sentence)")
-    out.append(f"mixing: {recipe.mix.order}; shards: {recipe.shards.format}, {recipe.shards.max_tokens:,} tokens each")
+    m = recipe.mix
+    balance = (f", balance {m.balance} (alpha {m.alpha:g}, {m.resample}sampling, splits {'/'.join(m.balance_splits)})"
+               if m.balance != "none" else "")
+    out.append(f"mixing: {m.order}{balance}; shards: {recipe.shards.format}, {recipe.shards.max_tokens:,} tokens each")
+    h = recipe.hygiene
+    out.append(f"hygiene: duplicates {h.duplicates}, cross-language {h.cross_language}, foreign {h.foreign}, "
+               f"item files excluded {len(h.exclude_items)}")
     out.append("conditions:")
     for cond in recipe.conditions:
         v = cond.vocab
@@ -41,8 +47,11 @@ def plan_text(recipe: Recipe, inputs: list[tuple[str, str, int, int]]) -> str:
             extra.append(f"share {len(cond.share)} spellings")
         if cond.separate:
             extra.append(f"separate {len(cond.separate)} spellings")
-        out.append(f"  {cond.name:<16} {cond.policy:<13} {classes}; max_size {v.max_size or 'none'}, "
-                   f"min_count {v.min_count}, unknown {v.unknown}, eos {v.eos}"
+        w = cond.subword
+        sizing = (f"max_size {v.max_size or 'none'}, min_count {v.min_count}" if w is None else
+                  f"{cond.units} ({w.engine}), " + (f"size {w.size}" if w.size else f"{w.size_per_language} pieces per language")
+                  + f", sample {w.sample_sentences or 'all'} per language")
+        out.append(f"  {cond.name:<16} {cond.policy:<13} {classes}; {sizing}, unknown {v.unknown}, eos {v.eos}"
                    + (f"; {', '.join(extra)}" if extra else ""))
     return "\n".join(out)
 

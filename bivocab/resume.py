@@ -3,8 +3,9 @@
 After every shard (all of its files renamed into place) the build appends one JSON line to
 ``DIR/.bivocab-journal.jsonl``; the first line holds the build's fingerprint (resolved recipe,
 input hashes, library versions and bivocab's own source).  ``build --resume`` reuses a shard
-only when the fingerprint is unchanged and every file of the shard still has its recorded size
-and sha256; everything else is written again.  A torn last line (a kill mid-append) is ignored.
+only when the fingerprint is unchanged, the vocabularies (and subword models) this run built are
+byte-identical to those the shard was encoded with, and every file of the shard still has its
+recorded size and sha256; everything else is written again.  A torn last line (a kill mid-append) is ignored.
 """
 
 from __future__ import annotations
@@ -46,6 +47,7 @@ class ShardJournal:
         self.resume = resume
         self.previous: dict[str, dict[str, Any]] = {}
         self.previous_fingerprint: str | None = None
+        self.vocabularies = ""   # digest of this run's vocabularies, set by bind_vocabularies
         self.reused: list[str] = []
         self.written: list[str] = []
         # build.json "files" entries of the shards of this build, hashed once when journaled
@@ -85,10 +87,19 @@ class ShardJournal:
         except OSError as exc:
             raise write_error(self.path, exc) from None
 
+    def bind_vocabularies(self, texts: list[bytes]) -> None:
+        """Record what this run encodes with (vocab.tsv texts, subword models): a shard encoded
+        with anything else is not reused, even if the fingerprint matched."""
+        digest = hashlib.sha256()
+        for text in texts:
+            digest.update(hashlib.sha256(text).digest())
+        self.vocabularies = digest.hexdigest()
+
     def reusable(self, shard: str, paths: list[str]) -> dict[str, Any] | None:
         """The recorded statistics of ``shard`` if every one of its files is intact, else None."""
         entry = self.previous.get(shard)
-        if entry is None or sorted(f["path"] for f in entry["files"]) != sorted(paths):
+        if entry is None or entry.get("vocabularies") != self.vocabularies \
+                or sorted(f["path"] for f in entry["files"]) != sorted(paths):
             return None
         for record in entry["files"]:
             full = self.out / record["path"]
@@ -104,7 +115,8 @@ class ShardJournal:
     def record(self, shard: str, paths: list[str], stats: dict[str, Any]) -> None:
         """Append a completed shard (its files are already renamed into place)."""
         files = [file_record(self.out, p) for p in paths]
-        line = json.dumps({"shard": shard, "files": files, "stats": stats}, sort_keys=True) + "\n"
+        line = json.dumps({"shard": shard, "files": files, "stats": stats, "vocabularies": self.vocabularies},
+                          sort_keys=True) + "\n"
         try:
             with open(self.path, "a", encoding="utf-8") as handle:
                 handle.write(line)

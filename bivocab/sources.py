@@ -1,8 +1,11 @@
-"""Reading input files: plain or compressed text, streamed in blocks of whole lines.
+"""Reading input files: plain or compressed text, JSON Lines, CSV/TSV, Parquet and saved
+`datasets` directories, streamed in blocks of whole lines.
 
 A block is raw bytes ending at a line break, with the number of its first line, so that any
 later stage can name the file and line of a problem.  Line breaks are LF, CRLF or a lone CR
-(each counts as one line, as in most editors).
+(each counts as one line, as in most editors).  Row formats turn each row's text field into
+one line of a block; the row's own number (file line for JSON Lines and CSV/TSV, 1-based row
+for Parquet and datasets) is recorded per line.  See docs/inputs.md.
 """
 
 from __future__ import annotations
@@ -21,6 +24,7 @@ from typing import BinaryIO, Iterator
 import zstandard
 
 from .errors import InputError
+from .recipe import ReadSpec
 
 BLOCK_BYTES = 4 << 20
 BOM = b"\xef\xbb\xbf"
@@ -36,6 +40,15 @@ class Block:
     line_count: int
     bom_removed: bool = False
     cr_line_ends: int = 0
+    # Set when the lines are not consecutive file lines (rows, split sentences): the source
+    # line or row of each line; several lines may share one number after sentence splitting.
+    line_numbers: tuple[int, ...] | None = None
+    source_lines: int | None = None   # lines or rows of the file this block covers (default line_count)
+    counters: tuple[tuple[str, int], ...] = ()   # reading events, added to the input's report
+
+    def line_number(self, offset: int) -> int:
+        """Source line (or row) of the block's ``offset``-th line (0-based)."""
+        return self.first_line + offset if self.line_numbers is None else self.line_numbers[offset]
 
 
 @dataclass(frozen=True)
@@ -43,10 +56,18 @@ class InputFile:
     path: Path           # absolute
     display: str         # as shown in messages and recorded in build.json (relative to the recipe)
     language: str
+    read: ReadSpec = ReadSpec()
 
 
 def file_sha256(path: Path) -> str:
+    """SHA-256 of a file; of a directory (a saved dataset), over its files' relative paths and
+    contents in sorted path order, so a renamed or changed member file changes the hash."""
     digest = hashlib.sha256()
+    if path.is_dir():
+        for member in sorted(p for p in path.rglob("*") if p.is_file()):
+            digest.update(member.relative_to(path).as_posix().encode("utf-8") + b"\0")
+            digest.update(file_sha256(member).encode("ascii"))
+        return digest.hexdigest()
     with open(path, "rb") as handle:
         for chunk in iter(lambda: handle.read(1 << 20), b""):
             digest.update(chunk)
@@ -128,7 +149,45 @@ def _read(handle: BinaryIO, size: int, display: str) -> bytes:
 
 
 def read_blocks(source: InputFile, file_index: int, block_bytes: int | None = None) -> Iterator[Block]:
-    """Yield the file as blocks of whole lines (LF-separated, no trailing LF).
+    """Yield the input as blocks of whole lines, in the input's format (see the module
+    docstring), split into sentences when the recipe asks for it."""
+    from .rows import read_row_blocks
+
+    fmt = input_format(source)
+    blocks = (read_text_blocks(source, file_index, block_bytes) if fmt == "text"
+              else read_row_blocks(source, file_index, fmt))
+    if source.read.split_sentences:
+        from .sentences import split_block_sentences
+
+        blocks = (split_block_sentences(b, source.language) for b in blocks)
+    yield from blocks
+
+
+_EXTENSION_FORMATS = {".jsonl": "jsonl", ".ndjson": "jsonl", ".csv": "csv", ".tsv": "tsv",
+                      ".parquet": "parquet", ".txt": "text"}
+COMPRESSION_SUFFIXES = (".gz", ".bz2", ".xz", ".lzma", ".zst")
+
+
+def input_format(source: InputFile) -> str:
+    """The format of an input: as the recipe says, else by extension (a compression suffix is
+    looked through: ``x.jsonl.gz`` is JSON Lines); a directory is a saved dataset; any other
+    file is plain text.
+
+    >>> input_format(InputFile(Path("/c/en.tsv.gz"), "en.tsv.gz", "en"))
+    'tsv'
+    """
+    if source.read.format != "auto":
+        return source.read.format
+    if source.path.is_dir():
+        return "datasets"
+    suffixes = [s.lower() for s in source.path.suffixes]
+    if suffixes and suffixes[-1] in COMPRESSION_SUFFIXES:
+        suffixes.pop()
+    return _EXTENSION_FORMATS.get(suffixes[-1], "text") if suffixes else "text"
+
+
+def read_text_blocks(source: InputFile, file_index: int, block_bytes: int | None = None) -> Iterator[Block]:
+    """Yield a text file as blocks of whole lines (LF-separated, no trailing LF).
 
     A byte-order mark at the start of the file is removed; CRLF and lone CR become LF.
     The file's size and modification time are compared before and after reading, so a file
@@ -188,6 +247,12 @@ def read_blocks(source: InputFile, file_index: int, block_bytes: int | None = No
             line += count
             if at_end:
                 break
+    check_unchanged(source, before)
+
+
+def check_unchanged(source: InputFile, before: os.stat_result) -> None:
+    """Fail if the input's size or modification time differs from ``before`` (taken when
+    reading started), so two versions of a file are never mixed silently."""
     try:
         after = os.stat(source.path)
     except OSError:

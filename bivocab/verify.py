@@ -18,9 +18,10 @@ from typing import Any, Callable
 import numpy as np
 
 from .errors import CheckFailed, InputError, OutputError
-from .manifest import (CONTROL_FILES, INCOMPLETE, MANIFEST, canonical_json, content_sha256, environment,
+from .manifest import (ANALYSIS_DIRS, CONTROL_FILES, INCOMPLETE, MANIFEST, canonical_json, content_sha256, environment,
                        incomplete_reason, is_temp_file, read_manifest, sha256_file)
 from .recipe import Recipe, recipe_from_manifest, resolve_recipe_inputs
+from .sources import file_sha256
 
 IDENTICAL = "identical"
 MISSING = "missing"                  # listed in build.json, not produced by the rebuild
@@ -156,7 +157,9 @@ def check_files_on_disk(out: Path, records: dict[str, dict[str, Any]], recipe_fi
             detail += "; content " + ("intact" if content == record["content_sha256"] else "changed")
         checks.append(FileCheck(path, CHANGED_ON_DISK, detail))
     recipe_rel = Path(os.path.normpath(recipe_file)).as_posix() if recipe_file else None
-    for root, _dirs, names in os.walk(out):
+    for root, dirs, names in os.walk(out):
+        if Path(root) == out:
+            dirs[:] = [d for d in dirs if d not in ANALYSIS_DIRS]
         for name in names:
             rel = Path(os.path.relpath(os.path.join(root, name), out)).as_posix()
             if rel in records or rel in CONTROL_FILES or rel == recipe_rel:
@@ -178,7 +181,7 @@ def check_inputs(manifest: dict[str, Any], recipe: Recipe) -> list[InputCheck]:
     for entry in manifest.get("inputs", []):
         path = recipe.base_dir / entry["path"]
         try:
-            digest = sha256_file(path)
+            digest = file_sha256(path)
         except FileNotFoundError:
             checks.append(InputCheck(entry["path"], MISSING, f"not found at {path}"))
             continue

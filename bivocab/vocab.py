@@ -13,6 +13,7 @@ import csv
 import io
 import json
 from dataclasses import dataclass
+from typing import Callable
 
 import numpy as np
 
@@ -73,7 +74,12 @@ def tagged_token(surface: str, tag: str) -> str:
     return f"{surface}@{tag}"
 
 
-def _specials(tags: tuple[str, ...], unknown: str, eos: str, pad: bool) -> list[tuple[str, str]]:
+def special_tokens(tags: tuple[str, ...], unknown: str, eos: str, pad: bool) -> list[tuple[str, str]]:
+    """The special entries ``(token, lang)`` a vocabulary starts with, in id order.
+
+    >>> special_tokens(("en", "de"), "per-language", "shared", True)
+    [('<pad>', '*'), ('<unk:en>', 'en'), ('<unk:de>', 'de'), ('<eos>', '*')]
+    """
     out: list[tuple[str, str]] = []
     if pad:
         out.append(("<pad>", SHARED))
@@ -85,13 +91,9 @@ def _specials(tags: tuple[str, ...], unknown: str, eos: str, pad: bool) -> list[
     return out
 
 
-def build_vocabulary(condition: ConditionSpec, tags: tuple[str, ...], surfaces: list[list[str]],
-                     train_counts: list[np.ndarray]) -> Vocabulary:
-    """Choose the entries of one condition and build each language's lookup table.
-
-    ``surfaces[l]`` are language l's token types (its type ids index them) and
-    ``train_counts[l]`` their counts in the train split.
-    """
+def sharing_rule(condition: ConditionSpec) -> Callable[[str], bool]:
+    """Whether a spelling is one entry for both languages under ``condition``: the forced
+    ``share`` / ``separate`` lists first, then the policy's choice for the spelling's class."""
     share, separate = set(condition.share), set(condition.separate)
 
     def is_shared(surface: str) -> bool:
@@ -101,13 +103,33 @@ def build_vocabulary(condition: ConditionSpec, tags: tuple[str, ...], surfaces: 
             return False
         return condition.classes[token_class(surface)] == "shared"
 
+    return is_shared
+
+
+def entry_key(surface: str, tag: str, is_shared: Callable[[str], bool]) -> tuple[str, str]:
+    """The entry ``(language or "*", surface)`` that a token of language ``tag`` belongs to.
+
+    >>> entry_key("Kind", "de", lambda surface: False)
+    ('de', 'Kind')
+    """
+    return (SHARED, surface) if is_shared(surface) else (tag, surface)
+
+
+def build_vocabulary(condition: ConditionSpec, tags: tuple[str, ...], surfaces: list[list[str]],
+                     train_counts: list[np.ndarray]) -> Vocabulary:
+    """Choose the entries of one condition and build each language's lookup table.
+
+    ``surfaces[l]`` are language l's token types (its type ids index them) and
+    ``train_counts[l]`` their counts in the train split.
+    """
+    is_shared = sharing_rule(condition)
     n_lang = len(tags)
     counts: dict[tuple[str, str], list[int]] = {}
     keys_per_lang: list[list[tuple[str, str]]] = []
     for li, (types, type_counts) in enumerate(zip(surfaces, train_counts)):
         keys = []
         for surface, count in zip(types, type_counts.tolist()):
-            key = (SHARED, surface) if is_shared(surface) else (tags[li], surface)
+            key = entry_key(surface, tags[li], is_shared)
             keys.append(key)
             if count:
                 slot = counts.get(key)
@@ -121,7 +143,7 @@ def build_vocabulary(condition: ConditionSpec, tags: tuple[str, ...], surfaces: 
     candidates = [(key, c) for key, c in counts.items() if sum(c) >= spec.min_count]
     # Tie rule (DESIGN.md section 6): count descending, then code points of the surface, then language.
     candidates.sort(key=lambda kc: (-sum(kc[1]), kc[0][1], lang_rank[kc[0][0]]))
-    specials = _specials(tags, spec.unknown, spec.eos, spec.pad)
+    specials = special_tokens(tags, spec.unknown, spec.eos, spec.pad)
     if spec.max_size:
         if spec.max_size <= len(specials):
             raise BivocabError(

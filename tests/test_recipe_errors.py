@@ -53,10 +53,10 @@ def test_bad_recipe_gives_one_line_with_file_line_and_key(tmp_path, text, expect
 
 
 def test_unknown_key_error_names_the_line_inside_the_right_condition(tmp_path):
-    text = BASE.replace('name = "fully-tagged"\npolicy = "fully-tagged"', 'name = "fully-tagged"\npolicy = "fully-tagged"\nsize = 3')
+    text = BASE.replace('name = "fully-tagged"\npolicy = "fully-tagged"', 'name = "fully-tagged"\npolicy = "fully-tagged"\nsise = 3')
     code, output = run("check", str(recipe_with(tmp_path, text)))
-    line = text.splitlines().index("size = 3") + 1
-    assert code == 2 and f"recipe.toml:{line}: [condition] size: unknown key" in one_error_line(output)
+    line = text.splitlines().index("sise = 3") + 1
+    assert code == 2 and f"recipe.toml:{line}: [condition] sise: unknown key" in one_error_line(output)
 
 
 def test_missing_recipe_file(tmp_path):

@@ -221,3 +221,15 @@ def test_rebuild_goes_to_the_scratch_directory_and_is_removed(built: Path, tmp_p
     assert verify(built, scratch=tmp_path).ok
     assert seen and seen[0].parent.parent == tmp_path
     assert list(tmp_path.iterdir()) == []
+
+
+def test_audit_and_probe_outputs_in_the_build_directory_are_not_extra_files(copy: Path) -> None:
+    from bivocab.audit import AUDIT_DIR
+    from bivocab.manifest import ANALYSIS_DIRS
+    from bivocab.probe import PROBE_DIR
+
+    assert set(ANALYSIS_DIRS) == {AUDIT_DIR, PROBE_DIR}
+    for name in ANALYSIS_DIRS:
+        (copy / name).mkdir()
+        (copy / name / "summary.json").write_text("{}")
+    assert verify(copy, hashes_only=True).ok

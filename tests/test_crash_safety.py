@@ -279,3 +279,18 @@ def test_a_killed_build_holds_no_lock(project: tuple[Path, dict[str, bytes]], ou
         time.sleep(0.05)
     with pytest.raises(CheckFailed, match="interrupted or failed"):
         verify(out)
+
+
+def test_resume_reuses_parquet_shards_too(project: tuple[Path, dict[str, bytes]], tmp_path: Path) -> None:
+    root, _ = project
+    recipe = write_recipe(root / "pq", max_tokens=1000, en="../en/*.txt", de="../de/*.txt")
+    recipe.write_text(recipe.read_text().replace("[shards]\n", '[shards]\nformat = "npy+parquet"\n'))
+    build(recipe, tmp_path / "reference")
+    out = tmp_path / "out"
+    with paused_build(recipe, out, "write:*/provenance/train/shard-00002.npy"):
+        pass
+    assert (out / "shared" / "train" / "shard-00001.parquet").exists()
+    result = build(recipe, out, resume=True)
+    assert result.reused_shards == ("train/shard-00000", "train/shard-00001")
+    assert tree_bytes(out) == tree_bytes(tmp_path / "reference")
+    assert verify(out, hashes_only=True).ok

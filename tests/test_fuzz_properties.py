@@ -113,13 +113,30 @@ def test_any_plain_text_input_is_read_or_refused_cleanly(data: bytes, spec: Clea
     read_input(data, ".txt", spec, block_bytes, workdir)
 
 
+def _parquet(text: bytes) -> bytes:
+    import io
+
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    sink = io.BytesIO()
+    pq.write_table(pa.table({"text": text.decode("utf-8", errors="replace").splitlines() or [""]}), sink)
+    return sink.getvalue()
+
+
+def _jsonl(text: bytes) -> bytes:
+    return b"".join(json.dumps({"text": line.decode("utf-8", errors="replace")}).encode() + b"\n"
+                    for line in text.splitlines())
+
+
 COMPRESS = {".gz": gzip.compress, ".bz2": bz2.compress, ".xz": lzma.compress,
-            ".zst": lambda b: zstandard.ZstdCompressor().compress(b), ".txt": lambda b: b}
+            ".zst": lambda b: zstandard.ZstdCompressor().compress(b), ".txt": lambda b: b,
+            ".jsonl": _jsonl, ".csv": lambda b: b"text\n" + b, ".tsv": lambda b: b"text\n" + b, ".parquet": _parquet}
 
 
 @st.composite
 def compressed_files(draw: st.DrawFn) -> tuple[bytes, str]:
-    """A compressed file, intact, cut short, with flipped bytes, or plain noise."""
+    """A compressed or row-format file, intact, cut short, with flipped bytes, or plain noise."""
     suffix = draw(st.sampled_from(SUFFIXES))
     data = COMPRESS[suffix](draw(TEXTY))
     damage = draw(st.sampled_from(["none", "cut", "flip", "noise"]))

@@ -115,7 +115,10 @@ def test_container_change_is_told_apart_from_a_data_change(copy: Path, monkeypat
             array[0] += 1
         _npy_version_2(path, array)
 
-    monkeypatch.setattr(build_module, "write_npy", write)
+    import bivocab.shards
+
+    monkeypatch.setattr(build_module, "write_npy", write)    # provenance
+    monkeypatch.setattr(bivocab.shards, "write_npy", write)  # condition shards
     report = verify(copy)
     problems = bad(report)
     assert problems.pop(changed) == (DIFFERENT, f"content differs; 1 of {np.load(copy / changed).size:,} "

@@ -14,7 +14,7 @@ from bivocab.scan import ScanTask, scan_block
 from bivocab.sources import InputFile, read_blocks
 from bivocab.splits import split_thresholds
 
-SUFFIXES = (".txt", ".gz", ".bz2", ".xz", ".zst")
+SUFFIXES = (".txt", ".gz", ".bz2", ".xz", ".zst", ".jsonl", ".csv", ".tsv", ".parquet")
 THRESHOLDS = split_thresholds(SplitSpec())
 
 

@@ -7,6 +7,7 @@ work directory); every word-level condition is then a lookup table applied with 
 from __future__ import annotations
 
 import contextlib
+import dataclasses
 import os
 import shutil
 from collections import Counter
@@ -69,6 +70,7 @@ class BuildResult:
     summaries: tuple[ConditionSummary, ...]
     reused_shards: tuple[str, ...] = ()   # shards that --resume took over, hash-checked
     total_shards: int = 0
+    was_incomplete: bool = False          # ``out`` held an interrupted (or failed) build before
 
 
 Progress = Callable[[str], None]
@@ -141,6 +143,7 @@ def _build_locked(recipe: Recipe, out: Path, jobs: int, force: bool, progress: P
     work = out / WORK
     try:
         check_output_dir(out, recipe, force)
+        was_incomplete = (out / INCOMPLETE).exists()
         journal = ShardJournal(out, resume)
         stale = _known_files(out, journal)
         # From here until build.json is renamed into place the directory is incomplete. The
@@ -168,7 +171,7 @@ def _build_locked(recipe: Recipe, out: Path, jobs: int, force: bool, progress: P
         journal.remove()
         (out / INCOMPLETE).unlink()
         fsync_dir(out)
-        return result
+        return dataclasses.replace(result, was_incomplete=was_incomplete)
     finally:
         shutil.rmtree(work, ignore_errors=True)
 

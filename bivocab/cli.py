@@ -71,6 +71,9 @@ def build_command(recipe: Path, out: Path, jobs: int, force: bool, quiet: bool, 
 
     show = (lambda stage: click.echo(f"[{stage}]", err=True)) if not quiet and sys.stderr.isatty() else (lambda _: None)
     result = build(recipe, out, jobs=jobs, force=force, progress=show, resume=resume)
+    if result.was_incomplete and not quiet:
+        click.echo(f"note: {out} held an incomplete build (interrupted or failed); it was "
+                   + ("resumed" if resume else "rebuilt (--resume would reuse its finished shards)"), err=True)
     if resume and not quiet:
         click.echo(f"resume: reused {len(result.reused_shards)} of {result.total_shards} shards "
                    "(each file checked against its recorded sha256)", err=True)

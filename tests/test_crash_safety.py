@@ -125,6 +125,7 @@ def test_resume_reuses_the_completed_shards_without_rewriting_them(
     before = {p: (p.stat().st_ino, p.stat().st_mtime_ns) for p in done}
     result = CliRunner().invoke(main, ["build", str(root / "recipe.toml"), "--out", str(out), "--resume"])
     assert result.exit_code == 0, result.output
+    assert f"note: {out} held an incomplete build (interrupted or failed); it was resumed\n" in result.stderr
     assert "resume: reused 4 of" in result.stderr
     assert {p: (p.stat().st_ino, p.stat().st_mtime_ns) for p in done} == before
     assert tree_bytes(out) == reference
@@ -159,8 +160,9 @@ def test_rerun_without_resume_rewrites_every_shard(project: tuple[Path, dict[str
     with paused_build(root / "recipe.toml", out, "stage:vocab files"):
         pass
     result = build(root / "recipe.toml", out)
-    assert result.reused_shards == ()
+    assert result.reused_shards == () and result.was_incomplete
     assert tree_bytes(out) == reference
+    assert not build(root / "recipe.toml", out).was_incomplete
 
 
 def test_second_build_into_a_busy_directory_is_refused(project: tuple[Path, dict[str, bytes]], out: Path) -> None:

@@ -7,6 +7,7 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
+import bivocab.scan
 from bivocab.errors import BivocabError
 from bivocab.manifest import canonical_json
 from bivocab.recipe import CleanSpec, SplitSpec, load_recipe, recipe_from_manifest
@@ -37,6 +38,9 @@ def read_input(data: bytes, suffix: str, spec: CleanSpec, block_bytes: int, work
     number of sentences kept."""
     path = workdir / f"input{suffix}"
     path.write_bytes(data)
+    # Each input starts from an empty segmentation cache, so that a failure never depends on the
+    # inputs before it (and the cache, bounded by entries not bytes, cannot grow with noise).
+    bivocab.scan._chunk_cache.clear()
     kept = 0
     try:
         for block in read_blocks(InputFile(path, path.name, "en"), 0, block_bytes=block_bytes):

@@ -185,3 +185,15 @@ def test_atheris_harness_bounded_run_finds_no_crash() -> None:
                           capture_output=True, text=True, timeout=300)
     assert done.returncode == 0, done.stderr[-3000:]
     assert "Done 1500 in" in done.stderr
+
+
+def test_parquet_with_invalid_utf8_in_its_schema_is_an_input_error(workdir: Path) -> None:
+    # Found by the compressed-input property above: pyarrow raised UnicodeDecodeError.
+    from bivocab.errors import InputError
+
+    data = _parquet(b"The tide turns.\n")
+    at = data.index(b"text", data.index(b"schema"))
+    path = workdir / "bad.parquet"
+    path.write_bytes(data[:at] + b"\xf4" + data[at + 1:])
+    with pytest.raises(InputError, match="bad.parquet: not a readable Parquet file"):
+        list(read_blocks(InputFile(path, "bad.parquet", "en"), 0))

@@ -4,23 +4,19 @@ universal newlines whatever the block size."""
 
 from __future__ import annotations
 
-import bz2
-import gzip
 import json
-import lzma
 import tempfile
 from pathlib import Path
 from typing import Iterator
 
 import pytest
-import zstandard
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from bivocab.recipe import CleanSpec
 from bivocab.sources import BOM, InputFile, read_blocks
 
-from fuzz.fuzz_targets import SUFFIXES, parse_recipe, read_input
+from fuzz.fuzz_targets import SUFFIXES, VALID_RECIPE, encode_as, parse_recipe, read_input
 
 
 @pytest.fixture(scope="module")
@@ -60,17 +56,7 @@ def _toml_value(depth: int = 0) -> st.SearchStrategy[str]:
 
 LINES = st.one_of(st.sampled_from(HEADERS), st.tuples(st.sampled_from(KEYS), _toml_value())
                   .map(lambda kv: f"{kv[0]} = {kv[1]}"), st.text(max_size=20))
-VALID = """[build]
-name = "kellhaven"
-seed = 3
-[languages.en]
-inputs = ["en/*.txt"]
-[languages.de]
-inputs = ["de/*.txt"]
-[[condition]]
-name = "shared"
-policy = "shared"
-""".splitlines()
+VALID = VALID_RECIPE.splitlines()
 
 
 @st.composite
@@ -113,32 +99,11 @@ def test_any_plain_text_input_is_read_or_refused_cleanly(data: bytes, spec: Clea
     read_input(data, ".txt", spec, block_bytes, workdir)
 
 
-def _parquet(text: bytes) -> bytes:
-    import io
-
-    import pyarrow as pa
-    import pyarrow.parquet as pq
-
-    sink = io.BytesIO()
-    pq.write_table(pa.table({"text": text.decode("utf-8", errors="replace").splitlines() or [""]}), sink)
-    return sink.getvalue()
-
-
-def _jsonl(text: bytes) -> bytes:
-    return b"".join(json.dumps({"text": line.decode("utf-8", errors="replace")}).encode() + b"\n"
-                    for line in text.splitlines())
-
-
-COMPRESS = {".gz": gzip.compress, ".bz2": bz2.compress, ".xz": lzma.compress,
-            ".zst": lambda b: zstandard.ZstdCompressor().compress(b), ".txt": lambda b: b,
-            ".jsonl": _jsonl, ".csv": lambda b: b"text\n" + b, ".tsv": lambda b: b"text\n" + b, ".parquet": _parquet}
-
-
 @st.composite
 def compressed_files(draw: st.DrawFn) -> tuple[bytes, str]:
     """A compressed or row-format file, intact, cut short, with flipped bytes, or plain noise."""
     suffix = draw(st.sampled_from(SUFFIXES))
-    data = COMPRESS[suffix](draw(TEXTY))
+    data = encode_as(suffix, draw(TEXTY))
     damage = draw(st.sampled_from(["none", "cut", "flip", "noise"]))
     if damage == "cut":
         data = data[:draw(st.integers(0, max(len(data) - 1, 0)))]
@@ -191,7 +156,7 @@ def test_parquet_with_invalid_utf8_in_its_schema_is_an_input_error(workdir: Path
     # Found by the compressed-input property above: pyarrow raised UnicodeDecodeError.
     from bivocab.errors import InputError
 
-    data = _parquet(b"The tide turns.\n")
+    data = encode_as(".parquet", b"The tide turns.\n")
     at = data.index(b"text", data.index(b"schema"))
     path = workdir / "bad.parquet"
     path.write_bytes(data[:at] + b"\xf4" + data[at + 1:])

@@ -4,8 +4,16 @@ Shared by the hypothesis properties (tests/test_fuzz_properties.py) and the athe
 
 from __future__ import annotations
 
+import bz2
+import gzip
+import io
 import json
+import lzma
 from pathlib import Path
+
+import pyarrow as pa
+import pyarrow.parquet as pq
+import zstandard
 
 import bivocab.scan
 from bivocab.errors import BivocabError
@@ -17,6 +25,32 @@ from bivocab.splits import split_thresholds
 
 SUFFIXES = (".txt", ".gz", ".bz2", ".xz", ".zst", ".jsonl", ".csv", ".tsv", ".parquet")
 THRESHOLDS = split_thresholds(SplitSpec())
+VALID_RECIPE = """[build]
+name = "kellhaven"
+seed = 3
+[languages.en]
+inputs = ["en/*.txt"]
+[languages.de]
+inputs = ["de/*.txt"]
+[[condition]]
+name = "shared"
+policy = "shared"
+"""
+
+
+def encode_as(suffix: str, text: bytes) -> bytes:
+    """``text`` (lines) as the content of an input file with ``suffix``: compressed, or as rows
+    of a JSON Lines, CSV/TSV or Parquet file with a ``text`` field."""
+    lines = text.decode("utf-8", errors="replace").splitlines()
+    if suffix == ".parquet":
+        sink = io.BytesIO()
+        pq.write_table(pa.table({"text": lines or [""]}), sink)
+        return sink.getvalue()
+    encoders = {".gz": gzip.compress, ".bz2": bz2.compress, ".xz": lzma.compress,
+                ".zst": lambda b: zstandard.ZstdCompressor().compress(b),
+                ".jsonl": lambda b: "".join(json.dumps({"text": line}) + "\n" for line in lines).encode("utf-8"),
+                ".csv": lambda b: b"text\n" + b, ".tsv": lambda b: b"text\n" + b}
+    return encoders.get(suffix, lambda b: b)(text)
 
 
 def parse_recipe(text: bytes, workdir: Path) -> None:

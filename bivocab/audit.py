@@ -1,5 +1,6 @@
 """Audit of a build: per-language statistics, overlap of the two vocabularies, the size each
-policy would give, coverage of every condition, and the homograph tables.
+policy would give, coverage of every condition, the homograph tables, and the statistics of
+subword conditions (bivocab.subword.subword_statistics).
 
 Every statistic is defined with its formula in docs/audit.md; the functions here are written
 so that each one can be checked on its own.  Written to ``DIR/audit/`` by :func:`write_audit`.
@@ -27,6 +28,8 @@ from .manifest import MANIFEST, build_lock, canonical_json, read_manifest, sha25
 from .probe import frequency_per_million, zipf_value
 from .recipe import POLICIES, SPLITS, ConditionSpec, Recipe, VocabSpec, recipe_from_manifest
 from .segment import SPECIAL, TOKEN_CLASSES, WORD, segment
+from .subword import subword_statistics
+from .subword_audit import PieceSpelling, is_subword, load_processors, subword_coverage, subword_headers, subword_rows
 from .vocab import entry_key, sharing_rule, special_tokens, tsv_text
 
 AUDIT_DIR = "audit"
@@ -372,18 +375,24 @@ def vocab_status(a: str, b: str, tags: Sequence[str], rule: Callable[[str], bool
     return "absent"
 
 
+Status = Callable[[str, str], str]   # (spelling in language A, in B) -> shared | separate | only-<tag> | absent
+
+
+def word_status(condition: ConditionSpec, vocab: VocabEntries, tags: Sequence[str]) -> Status:
+    rule = sharing_rule(condition)
+    return lambda a, b: vocab_status(a, b, tags, rule, vocab)
+
+
 def _pairs(kind_pairs: Iterable[tuple[str, str, str]], tags: Sequence[str], train: Sequence[Mapping[str, int]],
-           words: Sequence[int], class_of: Mapping[str, str], conditions: Sequence[ConditionSpec],
-           vocabs: Sequence[VocabEntries], lexicons: Mapping[str, Lexicon],
-           translations: Translations | None) -> tuple[HomographPair, ...]:
+           words: Sequence[int], class_of: Mapping[str, str], statuses: Sequence[Status],
+           lexicons: Mapping[str, Lexicon], translations: Translations | None) -> tuple[HomographPair, ...]:
     lex_a, lex_b = lexicons.get(tags[0]), lexicons.get(tags[1])
-    rules = [sharing_rule(c) for c in conditions]
     rows = []
     for kind, a, b in kind_pairs:
         rows.append(HomographPair(
             kind, a, b, class_of[a], train[0][a], train[1][b],
             frequency_per_million(train[0][a], words[0]), frequency_per_million(train[1][b], words[1]),
-            tuple(vocab_status(a, b, tags, rule, v) for rule, v in zip(rules, vocabs)),
+            tuple(status(a, b) for status in statuses),
             lex_a.attests(a) if lex_a else None, lex_b.attests(b) if lex_b else None,
             translations.label(a, b) if translations else None))
     rows.sort(key=lambda r: (-r.combined_per_million, r.surface_a, r.surface_b))
@@ -597,7 +606,9 @@ def audit_build(out: str | os.PathLike[str], lexicons: Mapping[str, Path] | None
 
     types_files = [manifest["languages"][tag]["types_file"] for tag in tags]
     vocab_files = [manifest["conditions"][c.name]["vocab"] for c in recipe.conditions]
-    _check_build_files(out, manifest, [*types_files, *vocab_files])
+    subword = [c.name for c in recipe.conditions if is_subword(manifest["conditions"][c.name])]
+    model_files = [manifest["conditions"][n]["models"][t] for n in subword for t in tags]
+    _check_build_files(out, manifest, [*types_files, *vocab_files, *model_files])
     languages = [read_types(out / path, tag) for path, tag in zip(types_files, tags)]
     train = [lang.counts_in(TRAIN) for lang in languages]
     class_of = {**languages[1].class_of(), **languages[0].class_of()}
@@ -626,15 +637,33 @@ def audit_build(out: str | os.PathLike[str], lexicons: Mapping[str, Path] | None
     sizes.update({f"types_{tag}": len(t) for tag, t in zip(tags, train)})
     summary["policy_sizes"] = sizes
 
-    summary["conditions"] = {
-        c.name: {"policy": c.policy, "size": v.size, "uncapped_size": uncapped_size(c, tags, [set(t) for t in train]),
-                 "max_size": c.vocab.max_size, "min_count": c.vocab.min_count,
-                 "coverage": coverage(c, v, languages, top)}
-        for c, v in zip(conditions, vocabs)}
+    processors = {n: load_processors(out, manifest["conditions"][n], tags) for n in subword}
+    summary["conditions"] = {}
+    statuses: list[Status] = []
+    for c, v in zip(conditions, vocabs):
+        if c.name in processors:
+            # A subword condition has no word entries: no uncapped word-level size, no word cap,
+            # and coverage counted on pieces (OOV = the unknown piece).
+            summary["conditions"][c.name] = {
+                "policy": c.policy, "units": manifest["conditions"][c.name]["units"], "size": v.size,
+                "uncapped_size": None, "max_size": None, "min_count": None,
+                "coverage": subword_coverage(out, recipe, c.name, manifest["conditions"][c.name],
+                                             processors[c.name], top)}
+            statuses.append(PieceSpelling(processors[c.name], tags).status)
+        else:
+            summary["conditions"][c.name] = {
+                "policy": c.policy, "units": "word", "size": v.size,
+                "uncapped_size": uncapped_size(c, tags, [set(t) for t in train]),
+                "max_size": c.vocab.max_size, "min_count": c.vocab.min_count,
+                "coverage": coverage(c, v, languages, top)}
+            statuses.append(word_status(c, v, tags))
+    if subword:
+        progress("subword statistics")
+        summary["subword"] = subword_statistics(out)
 
     progress("homographs")
     only_a, only_b = set(train[0]) - shared, set(train[1]) - shared
-    common = (tags, train, words, class_of, conditions, vocabs, lexicon_data, translation_data)
+    common = (tags, train, words, class_of, statuses, lexicon_data, translation_data)
     homographs = _pairs((("exact", s, s) for s in shared), *common)
     variants = _pairs(((kind, a, b) for a, b, kind in spelling_variants(only_a, only_b)), *common)
     near_words = ({s for s in only_a if class_of[s] == WORD}, {s for s in only_b if class_of[s] == WORD})
@@ -776,6 +805,11 @@ def audit_text(result: AuditResult) -> str:
         rows.append([name, c["policy"], f"{c['size']:,}",
                      *[_pct(c["coverage"][t][sp]["oov_share"]) for t in tags for sp in SPLITS]])
     lines += _table(rows, left=2)
+    if "subword" in s:
+        lines += ["  (subword conditions: share of pieces that are the unknown piece)", "",
+                  f"subword conditions ({s['subword']['split']} split; fertility = pieces per word; parity on "
+                  "comparable, not parallel, text):"]
+        lines += _table([subword_headers(tags), *subword_rows(s["subword"], tags)], left=3)
     h, v, n = s["homographs"], s["variants"], s["near_homographs"]
     lines += ["", f"homographs: {h['count']:,} exact, {v['count']:,} case/diacritic variants, "
               f"{n['count']:,} near-homographs (edit distance 1)"]

@@ -15,6 +15,7 @@ import numpy as np
 from .audit import BAND_BASE, TRAIN, AuditResult, HomographPair
 from .recipe import POLICIES, SPLITS
 from .segment import TOKEN_CLASSES, WORD
+from .subword_audit import subword_headers, subword_rows
 
 COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9")  # Okabe-Ito: colour-blind safe
 
@@ -212,7 +213,9 @@ def _conditions(result: AuditResult) -> Figure:
         left, right = fig.subplots(1, 2, width_ratios=(1, 1.6))
         x = np.arange(len(names))
         left.bar(x - 0.2, [conds[c]["size"] for c in names], 0.4, color=COLOURS[0], label="built")
-        left.bar(x + 0.2, [conds[c]["uncapped_size"] for c in names], 0.4, color=COLOURS[5], label="uncapped")
+        # A subword condition has no uncapped word-level size: no bar (NaN).
+        left.bar(x + 0.2, [np.nan if conds[c]["uncapped_size"] is None else conds[c]["uncapped_size"] for c in names],
+                 0.4, color=COLOURS[5], label="uncapped")
         left.set_xticks(x, names, rotation=20)
         left.set_ylabel("entries")
         left.set_title("Vocabulary size")
@@ -238,7 +241,9 @@ def _conditions(result: AuditResult) -> Figure:
     for c in names:
         cov = conds[c]["coverage"]
         oov = ", ".join(f"{t} {sp} {_pct(cov[t][sp]['oov_share'])}" for t in result.tags for sp in SPLITS if sp != TRAIN)
-        parts.append(f"{c}: {conds[c]['size']:,} entries (uncapped {conds[c]['uncapped_size']:,}), OOV {oov}")
+        size = (f"{conds[c]['units']} pieces" if conds[c]["uncapped_size"] is None
+                else f"uncapped {conds[c]['uncapped_size']:,}")
+        parts.append(f"{c}: {conds[c]['size']:,} entries ({size}), OOV {oov}")
     alt = "Bar charts of vocabulary size and out-of-vocabulary share per condition. " + "; ".join(parts) + "."
     return Figure("conditions", "Vocabulary size and coverage per condition", alt, _render(draw, (8.5, 4.2)))
 
@@ -399,11 +404,16 @@ def render_report(result: AuditResult, top: int = 25) -> str:
     rows = []
     for name in result.conditions:
         c = s["conditions"][name]
-        rows.append([name, c["policy"], f"{c['size']:,}", f"{c['uncapped_size']:,}",
+        rows.append([name, c["policy"], f"{c['size']:,}",
+                     "–" if c["uncapped_size"] is None else f"{c['uncapped_size']:,}",
                      *[_pct(c["coverage"][t][sp]["oov_share"]) for t in tags for sp in SPLITS]])
     out.append('<div class="wide">' + _table(["condition", "policy", "size", "uncapped size",
                                               *[f"OOV {t} {sp}" for t in tags for sp in SPLITS]],
                                              rows, "Share of tokens out of vocabulary") + "</div>")
+    subword = [n for n in result.conditions if s["conditions"][n]["uncapped_size"] is None]
+    if subword:
+        out.append(f"<p>Subword conditions ({_esc(', '.join(subword))}): the share of pieces that are the unknown "
+                   "piece; they have no word-level uncapped size.</p>")
     rows = []
     for name in result.conditions:
         for t in tags:
@@ -416,6 +426,27 @@ def render_report(result: AuditResult, top: int = 25) -> str:
     out.append(_table(["condition, language, split", "OOV types", "most frequent OOV types (count)"], rows,
                       "Most frequent out-of-vocabulary types"))
     out.append(_figure_html(figs["conditions"]))
+    if "subword" in s:
+        sub = s["subword"]
+        out.append("<h2>Subword conditions</h2>")
+        out.append(f"<p>Counted on the {_esc(sub['split'])} split. Out of vocabulary for a subword condition means "
+                   "the unknown piece (with byte fallback every character has pieces). Fertility = pieces per word "
+                   "and continued words = words of two or more pieces (Rust et al. 2021); parity = fertility "
+                   f"{_esc(a)} / fertility {_esc(b)}, so pieces per word: the text is comparable, not parallel "
+                   "(Petrov et al. 2023 define parity on parallel text, per translated sentence). Pieces used by "
+                   "both: non-special ids found in both languages' shards.</p>")
+        out.append('<div class="wide">' + _table(subword_headers(tags), subword_rows(sub, tags),
+                                                 "Subword conditions: fertility, continued words, parity, "
+                                                 "shared pieces") + "</div>")
+        rows = []
+        for name, c in sub["conditions"].items():
+            ident = c["size_identity"]
+            pieces = " + ".join(f"{ident['model_pieces'][t]:,}" for t in tags)
+            rows.append([name, f"{ident['specials']}", pieces, f"{ident['pieces_in_both_models']:,}",
+                         f"{ident['shared_entries']:,}", f"{ident['size']:,}", "holds" if ident["holds"] else "FAILS"])
+        out.append(_table(["condition", "specials", f"model pieces {a} + {b}", "pieces in both models",
+                           "shared entries", "size", "specials + pieces − both = size"], rows,
+                          "Subword size identities"))
 
     out.append("<h2>Homographs</h2>")
     h = s["homographs"]

@@ -1,7 +1,7 @@
 """Probe: encode experimental test items under every condition of a build and check them.
 
 Reads an items file (CSV or TSV, see docs/probe.md), encodes each item with every condition's
-vocabulary, looks up the critical words' training frequencies in both languages, and scans the
+vocabulary (word-level lookup, or the exported sentencepiece model of a subword condition), looks up the critical words' training frequencies in both languages, and scans the
 training split once for items that leaked into it (whole sentences and word n-grams).
 """
 
@@ -17,7 +17,9 @@ import json
 import math
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Iterable
+from typing import Any, Iterable, Sequence
+
+import sentencepiece as spm
 
 from .build import INCOMPLETE
 from .clean import normalise_text
@@ -27,6 +29,7 @@ from .manifest import MANIFEST, atomic_write_text, build_lock, canonical_json, r
 from .recipe import CleanSpec, ConditionSpec, Recipe, recipe_from_manifest
 from .segment import NUMBER, SPECIAL, WORD, segment, token_class
 from .sources import file_sha256
+from .subword import word_spans
 from .vocab import tsv_text
 
 DEFAULT_NGRAM = 8
@@ -40,6 +43,8 @@ OPTIONAL_COLUMNS: tuple[str, ...] = ("occurrence",)
 # Columns of the TSV view; a carried-through column may not reuse one of these names.
 TSV_COLUMNS: tuple[str, ...] = ("id", "lang", "sentence", "tokens", "vocab_tokens", "ids",
                                 "critical_positions", "oov")
+# Further columns of a subword condition's TSV view (also reserved).
+SUBWORD_TSV_COLUMNS: tuple[str, ...] = ("critical_span", "critical_aligned", "byte_fallback")
 
 
 # --- items -------------------------------------------------------------------------------------
@@ -136,7 +141,7 @@ def read_items(path: str | Path, tags: tuple[str, ...], clean: CleanSpec) -> tup
         raise InputError(f"{where(path, header_line)}: missing column '{missing[0]}' (the header has "
                          f"{', '.join(header)}; required: {expected})")
     carried = [name for name in header if name not in REQUIRED_COLUMNS + OPTIONAL_COLUMNS]
-    reserved = [name for name in carried if name in TSV_COLUMNS]
+    reserved = [name for name in carried if name in TSV_COLUMNS + SUBWORD_TSV_COLUMNS]
     if reserved:
         raise InputError(f"{where(path, header_line)}: column '{reserved[0]}' is a name the probe output "
                          f"uses; rename it")
@@ -203,6 +208,9 @@ class _BuildFiles:
         self.hashes = {f["path"]: f["sha256"] for f in manifest.get("files", [])}
 
     def read_text(self, rel: str) -> str:
+        return self.read_bytes(rel).decode("utf-8")
+
+    def read_bytes(self, rel: str) -> bytes:
         path = self.out / rel
         expected = self.hashes.get(rel)
         if expected is None:
@@ -215,7 +223,7 @@ class _BuildFiles:
             raise OutputError(f"{path}: cannot read: {exc.strerror or exc}") from None
         if hashlib.sha256(data).hexdigest() != expected:
             raise OutputError(f"{path}: changed since the build (sha256 differs from {MANIFEST}); rebuild it")
-        return data.decode("utf-8")
+        return data
 
     def read_tsv(self, rel: str, header: tuple[str, ...]) -> list[list[str]]:
         """Rows of a build TSV (tab-separated with CSV quoting, as vocab.tsv and types/*.tsv are
@@ -248,28 +256,26 @@ class ConditionLexicon:
         return ids, oov
 
 
-def load_lexicon(files: _BuildFiles, condition: ConditionSpec, tags: tuple[str, ...],
-                 manifest_entry: dict[str, Any]) -> ConditionLexicon:
-    """Read a condition's vocab.tsv; refuse conditions whose exported model is not word-level."""
-    for tag in tags:
-        rel = manifest_entry["tokenizers"][tag]
-        model = json.loads(files.read_text(rel)).get("model", {}).get("type")
-        if model != "WordLevel":
-            raise OutputError(f"{files.out / rel}: condition '{condition.name}' uses a {model} model; "
-                              f"the probe encodes word-level conditions only")
-    rel = manifest_entry["vocab"]
-    rows = files.read_tsv(rel, ("id", "token", "surface", "lang", "class", "count"))
-    tokens: list[str] = []
-    ids: list[dict[str, int]] = [{} for _ in tags]
-    specials: dict[str, int] = {}
-    for entry_id, token, surface, lang, cls, *_ in rows:
-        tokens.append(token)
-        if cls == SPECIAL:
-            specials[token] = int(entry_id)
-            continue
-        for li, tag in enumerate(tags):
-            if lang in ("*", tag):
-                ids[li][surface] = int(entry_id)
+@dataclass(frozen=True)
+class SubwordLexicon:
+    """What encoding needs from a subword condition: its exported sentencepiece model per
+    language (piece i of the model is vocab.tsv entry i, docs/subword.md) and vocab.tsv's tokens."""
+
+    name: str
+    units: str
+    tokens: tuple[str, ...]                 # exported token string by id
+    processors: tuple[spm.SentencePieceProcessor, ...]   # per language (recipe order)
+    eos_ids: tuple[int, ...] | None
+
+
+def _vocab_rows(files: _BuildFiles, manifest_entry: dict[str, Any]) -> list[list[str]]:
+    return files.read_tsv(manifest_entry["vocab"], ("id", "token", "surface", "lang", "class", "count"))
+
+
+def _special_ids(files: _BuildFiles, condition: ConditionSpec, tags: tuple[str, ...], rel: str,
+                 rows: list[list[str]]) -> tuple[tuple[int, ...], tuple[int, ...] | None]:
+    """Unknown and end-of-sentence ids per language, as the condition's specials choose them."""
+    specials = {token: int(entry_id) for entry_id, token, _, _, cls, *_ in rows if cls == SPECIAL}
     spec = condition.vocab
     unk_names = ["<unk>"] * len(tags) if spec.unknown == "shared" else [f"<unk:{t}>" for t in tags]
     eos_names = (None if spec.eos == "none" else
@@ -277,9 +283,50 @@ def load_lexicon(files: _BuildFiles, condition: ConditionSpec, tags: tuple[str, 
     for name in unk_names + (eos_names or []):
         if name not in specials:
             raise OutputError(f"{files.out / rel}: special token {name} is missing")
-    return ConditionLexicon(condition.name, tuple(tokens), tuple(ids),
-                            tuple(specials[n] for n in unk_names),
-                            None if eos_names is None else tuple(specials[n] for n in eos_names))
+    return (tuple(specials[n] for n in unk_names),
+            None if eos_names is None else tuple(specials[n] for n in eos_names))
+
+
+def load_lexicon(files: _BuildFiles, condition: ConditionSpec, tags: tuple[str, ...],
+                 manifest_entry: dict[str, Any]) -> ConditionLexicon | SubwordLexicon:
+    """Read what encoding needs: vocab.tsv for a word-level condition, vocab.tsv and the exported
+    sentencepiece models for a subword condition."""
+    rel = manifest_entry["vocab"]
+    if manifest_entry.get("units", "word") != "word":
+        rows = _vocab_rows(files, manifest_entry)
+        _, eos_ids = _special_ids(files, condition, tags, rel, rows)
+        processors = []
+        for tag in tags:
+            model_rel = manifest_entry["models"][tag]
+            processor = spm.SentencePieceProcessor()
+            try:
+                processor.LoadFromSerializedProto(files.read_bytes(model_rel))
+            except RuntimeError as exc:
+                raise OutputError(f"{files.out / model_rel}: not a sentencepiece model ({exc})") from None
+            if processor.get_piece_size() != len(rows):
+                raise OutputError(f"{files.out / model_rel}: {processor.get_piece_size()} pieces, but "
+                                  f"{files.out / rel} has {len(rows)} entries; rebuild")
+            processors.append(processor)
+        return SubwordLexicon(condition.name, manifest_entry["units"], tuple(row[1] for row in rows),
+                              tuple(processors), eos_ids)
+    for tag in tags:
+        tok_rel = manifest_entry["tokenizers"][tag]
+        model = json.loads(files.read_text(tok_rel)).get("model", {}).get("type")
+        if model != "WordLevel":
+            raise OutputError(f"{files.out / tok_rel}: condition '{condition.name}' is recorded as word-level "
+                              f"but its tokenizer uses a {model} model; rebuild")
+    rows = _vocab_rows(files, manifest_entry)
+    tokens: list[str] = []
+    ids: list[dict[str, int]] = [{} for _ in tags]
+    for entry_id, token, surface, lang, cls, *_ in rows:
+        tokens.append(token)
+        if cls == SPECIAL:
+            continue
+        for li, tag in enumerate(tags):
+            if lang in ("*", tag):
+                ids[li][surface] = int(entry_id)
+    unk_ids, eos_ids = _special_ids(files, condition, tags, rel, rows)
+    return ConditionLexicon(condition.name, tuple(tokens), tuple(ids), unk_ids, eos_ids)
 
 
 # --- frequencies -------------------------------------------------------------------------------
@@ -485,16 +532,32 @@ def _check_inputs_unchanged(recipe: Recipe, manifest: dict[str, Any]) -> None:
 # --- the whole probe ---------------------------------------------------------------------------
 
 @dataclass(frozen=True)
+class SubwordDetail:
+    """What a subword condition adds to an encoded item."""
+
+    units: str                          # unigram | bpe
+    critical_span: tuple[int, int]      # pieces ids[start:end] cover the critical word
+    critical_aligned: bool              # those pieces hold nothing but the critical word (and a leading ▁)
+    byte_fallback: tuple[bool, ...]     # per id: a UTF-8 byte piece (a character without a piece)
+
+
+@dataclass(frozen=True)
 class EncodedItem:
     item: Item
     ids: tuple[int, ...]
+    tokens: tuple[str, ...]             # per id: the word, or the piece as in the model; <eos> by name
     vocab_tokens: tuple[str, ...]       # exported token string of each id
-    oov: tuple[bool, ...]
+    oov: tuple[bool, ...]               # per id: mapped to the unknown token
     critical_positions: tuple[int, ...]  # 0-based indices into ids
+    subword: SubwordDetail | None = None
 
     @property
     def oov_tokens(self) -> tuple[str, ...]:
-        return tuple(t for t, flag in zip(self.item.tokens, self.oov) if flag)
+        return tuple(t for t, flag in zip(self.tokens, self.oov) if flag)
+
+    @property
+    def critical_pieces(self) -> tuple[str, ...]:
+        return tuple(self.tokens[p] for p in self.critical_positions)
 
     @property
     def critical_oov(self) -> bool:
@@ -520,18 +583,69 @@ class ProbeResult:
                      if any(enc[i].critical_oov for enc in self.encoded.values()))
 
     @property
+    def subword_conditions(self) -> tuple[str, ...]:
+        return tuple(c for c, enc in self.encoded.items() if enc and enc[0].subword is not None)
+
+    @property
     def failing_items(self) -> tuple[str, ...]:
         """Items that fail ``--strict``: an OOV critical word in some condition, or contaminated."""
         bad = set(self.critical_oov_items) | {c.item for c in self.contamination}
         return tuple(item.id for item in self.items if item.id in bad)
 
 
-def encode_items(items: tuple[Item, ...], lexicon: ConditionLexicon, tags: tuple[str, ...]) -> tuple[EncodedItem, ...]:
+def critical_piece_span(text: str, span: tuple[int, int],
+                        pieces: Sequence[tuple[int, int]]) -> tuple[tuple[int, int], bool]:
+    """The pieces covering tokens ``span`` of ``text``, as (start, end) piece positions, and
+    whether they hold nothing else but a leading boundary space.  ``pieces`` are sentencepiece's
+    (begin, end) UTF-8 byte offsets; a zero-width piece (a leading byte of a byte-fallback
+    character) covers the character at its offset.
+
+    >>> critical_piece_span("Die Fähre legt", (1, 2), [(0, 3), (3, 10), (10, 15)])
+    ((1, 2), True)
+    >>> critical_piece_span("Kell-Brücke", (2, 3), [(0, 4), (4, 7), (7, 12)])
+    ((1, 3), False)
+    """
+    words = word_spans(text)
+    begin, end = words[span[0]][0], words[span[1] - 1][1]
+    covering = [k for k, (b, e) in enumerate(pieces) if (b < end and e > begin if e > b else begin <= b < end)]
+    first, last = covering[0], covering[-1]
+    lead = pieces[first][0]
+    aligned = pieces[last][1] == end and not text.encode("utf-8")[lead:begin].strip()
+    return (first, last + 1), aligned
+
+
+def encode_subword_item(item: Item, lexicon: SubwordLexicon, lang_index: int) -> EncodedItem:
+    """Encode an item with its language's exported sentencepiece model, as the build encoded
+    the corpus: ids of the normalised sentence, then the end-of-sentence id when there is one."""
+    processor = lexicon.processors[lang_index]
+    proto = processor.encode(item.text, out_type="proto")
+    ids = [p.id for p in proto.pieces]
+    tokens = [p.piece for p in proto.pieces]
+    span, aligned = critical_piece_span(item.text, item.span, [(p.begin, p.end) for p in proto.pieces])
+    oov = [processor.is_unknown(i) for i in ids]
+    byte = [processor.is_byte(i) for i in ids]
+    if lexicon.eos_ids is not None:
+        ids.append(lexicon.eos_ids[lang_index])
+        tokens.append(lexicon.tokens[ids[-1]])
+        oov.append(False)
+        byte.append(False)
+    return EncodedItem(item, tuple(ids), tuple(tokens), tuple(lexicon.tokens[i] for i in ids), tuple(oov),
+                       tuple(range(*span)), SubwordDetail(lexicon.units, span, aligned, tuple(byte)))
+
+
+def encode_items(items: tuple[Item, ...], lexicon: ConditionLexicon | SubwordLexicon,
+                 tags: tuple[str, ...]) -> tuple[EncodedItem, ...]:
     out = []
     for item in items:
-        ids, oov = lexicon.encode(tags.index(item.lang), item.tokens)
-        out.append(EncodedItem(item, tuple(ids), tuple(lexicon.tokens[i] for i in ids), tuple(oov),
-                               tuple(range(*item.span))))
+        li = tags.index(item.lang)
+        if isinstance(lexicon, SubwordLexicon):
+            out.append(encode_subword_item(item, lexicon, li))
+            continue
+        ids, oov = lexicon.encode(li, item.tokens)
+        vocab_tokens = tuple(lexicon.tokens[i] for i in ids)
+        # The end-of-sentence token (when the condition has one) has no surface: show its token string.
+        out.append(EncodedItem(item, tuple(ids), item.tokens + vocab_tokens[len(item.tokens):], vocab_tokens,
+                               tuple(oov), tuple(range(*item.span))))
     return tuple(out)
 
 
@@ -567,21 +681,34 @@ def _analyse(out: Path, manifest: dict[str, Any], items_path: str | Path, ngram:
 
 def _record(condition: str, enc: EncodedItem) -> dict[str, Any]:
     item = enc.item
-    # The end-of-sentence token (when the condition has one) has no surface: show its token string.
-    tokens = list(item.tokens) + list(enc.vocab_tokens[len(item.tokens):])
-    return {"id": item.id, "lang": item.lang, "condition": condition, "sentence": item.text,
-            "tokens": tokens,
-            "vocab_tokens": list(enc.vocab_tokens), "ids": list(enc.ids), "oov": list(enc.oov),
-            "critical_word": item.critical, "critical_positions": list(enc.critical_positions),
-            "columns": dict(item.columns)}
+    record = {"id": item.id, "lang": item.lang, "condition": condition, "sentence": item.text,
+              "tokens": list(enc.tokens),
+              "vocab_tokens": list(enc.vocab_tokens), "ids": list(enc.ids), "oov": list(enc.oov),
+              "critical_word": item.critical, "critical_positions": list(enc.critical_positions)}
+    if enc.subword is not None:
+        record.update({"units": enc.subword.units, "critical_span": list(enc.subword.critical_span),
+                       "critical_aligned": enc.subword.critical_aligned,
+                       "byte_fallback": list(enc.subword.byte_fallback)})
+    record["columns"] = dict(item.columns)
+    return record
+
+
+def _flags(values: Iterable[bool]) -> str:
+    return " ".join("1" if f else "0" for f in values)
 
 
 def _tsv(encoded: tuple[EncodedItem, ...], records: list[dict[str, Any]]) -> str:
     carried = [name for name, _ in encoded[0].item.columns]
-    rows = [[r["id"], r["lang"], r["sentence"], " ".join(r["tokens"]), " ".join(r["vocab_tokens"]),
-             " ".join(map(str, r["ids"])), " ".join(map(str, r["critical_positions"])),
-             " ".join("1" if f else "0" for f in r["oov"]), *r["columns"].values()] for r in records]
-    return tsv_text([*TSV_COLUMNS, *carried], rows)
+    subword = encoded[0].subword is not None
+    rows = []
+    for r in records:
+        row = [r["id"], r["lang"], r["sentence"], " ".join(r["tokens"]), " ".join(r["vocab_tokens"]),
+               " ".join(map(str, r["ids"])), " ".join(map(str, r["critical_positions"])), _flags(r["oov"])]
+        if subword:
+            row += [" ".join(map(str, r["critical_span"])), "1" if r["critical_aligned"] else "0",
+                    _flags(r["byte_fallback"])]
+        rows.append(row + list(r["columns"].values()))
+    return tsv_text([*TSV_COLUMNS, *(SUBWORD_TSV_COLUMNS if subword else ()), *carried], rows)
 
 
 def _write_outputs(result: ProbeResult) -> ProbeResult:
@@ -639,7 +766,24 @@ def summary_json(result: ProbeResult) -> dict[str, Any]:
                                     for h in c.hits]} for c in result.contamination],
         "failing_items": list(result.failing_items),
         "files": list(result.files),
-    }
+    } | ({"critical_pieces": _critical_pieces_json(result)} if result.subword_conditions else {})
+
+
+def _critical_pieces_json(result: ProbeResult) -> list[dict[str, Any]]:
+    """Per item, the pieces of its critical word under every subword condition."""
+    out = []
+    for i, item in enumerate(result.items):
+        by_condition = {}
+        for c in result.subword_conditions:
+            enc = result.encoded[c][i]
+            detail = enc.subword
+            assert detail is not None
+            by_condition[c] = {"pieces": list(enc.critical_pieces), "span": list(detail.critical_span),
+                               "aligned": detail.critical_aligned,
+                               "byte_fallback": sum(detail.byte_fallback[p] for p in enc.critical_positions),
+                               "oov": sum(enc.oov[p] for p in enc.critical_positions)}
+        out.append({"id": item.id, "lang": item.lang, "word": item.critical, "conditions": by_condition})
+    return out
 
 
 def _table(rows: list[list[str]], right: set[int]) -> list[str]:
@@ -692,6 +836,20 @@ def summary_text(result: ProbeResult) -> str:
             cells += [str(f.count), f"{f.per_million:.1f}", _zipf(f.zipf)]
         rows.append(cells + ["yes" if c.homograph else "no"])
     out += _table(rows, set(range(3, 3 + 3 * len(tags))))
+
+    if result.subword_conditions:
+        out.append("")
+        out.append("Critical words under subword conditions: the pieces of the critical span "
+                   "(* = a piece also holds text beyond the word, b = byte-fallback pieces):")
+        rows = [["item", "lang", "word", *result.subword_conditions]]
+        for row in _critical_pieces_json(result):
+            cells = []
+            for c in result.subword_conditions:
+                entry = row["conditions"][c]
+                marks = ("" if entry["aligned"] else " *") + (" b" if entry["byte_fallback"] else "")
+                cells.append(" ".join(entry["pieces"]) + marks)
+            rows.append([row["id"], row["lang"], row["word"], *cells])
+        out += _table(rows, set())
 
     out.append("")
     if result.contamination:

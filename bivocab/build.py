@@ -7,6 +7,7 @@ work directory); every word-level condition is then a lookup table applied with 
 from __future__ import annotations
 
 import contextlib
+import dataclasses
 import functools
 import gc
 import os
@@ -23,8 +24,9 @@ import numpy as np
 from . import __version__
 from .errors import BivocabError, OutputError
 from .hygiene import prepare_hygiene
-from .manifest import (LOCK, MANIFEST, WORK, atomic_open, atomic_write_text, build_lock,
-                       canonical_json, environment, read_manifest, sha256_file)
+from .manifest import (CONTROL_FILES, INCOMPLETE, LOCK, MANIFEST, WORK, atomic_open, atomic_write_text,
+                       build_lock, canonical_json, check_inputs_unchanged, checkpoint, environment, file_record,
+                       fsync_dir, hash_inputs, read_manifest, remove_temp_files, sha256_file, write_error)
 from .mix import SplitOrder, mix_split
 from .recipe import SPLITS, Recipe, load_recipe
 from .gather import ShardBuckets
@@ -32,14 +34,15 @@ from .progress import BuildMeter
 from .scan import (ScanResult, ScanTask, TypeTable, WorkerTypeMaps, ordered_map, ragged_gather, release_tables,
                    scan_block)
 from .segment import token_class
+from .resume import ShardJournal, build_fingerprint
 from .shards import PROVENANCE_DTYPE, ShardWriter, shard_stem, write_npy
-from .sources import InputFile, file_sha256, read_blocks
+from .sources import InputFile, read_blocks
 from .splits import split_thresholds
 from .subword import (SentenceText, SubwordCondition, build_subword_condition, model_path, tokenizer_path,
                       unigram_tokenizer_json)
 from .vocab import Vocabulary, build_vocabulary, tokenizer_json, tsv_text, vocab_tsv
 
-INCOMPLETE = ".bivocab-incomplete"
+
 # Bytes of text per scan block.  Larger blocks repeat more of their chunks, so a worker looks
 # up fewer distinct chunks per token (16 MiB: about a fifth faster than 4 MiB, at the price of
 # a few hundred MB of working memory per worker).
@@ -78,6 +81,9 @@ class BuildResult:
     out: Path
     manifest: dict[str, Any]
     summaries: tuple[ConditionSummary, ...]
+    reused_shards: tuple[str, ...] = ()   # shards that --resume took over, hash-checked
+    total_shards: int = 0
+    was_incomplete: bool = False          # ``out`` held an interrupted (or failed) build before
 
 
 # A meter (timings, bars), or a function called with the name of each stage as it starts.
@@ -102,11 +108,14 @@ def check_output_dir(out: Path, recipe: Recipe, force: bool) -> None:
     names = {p.name for p in out.iterdir()} - {LOCK, WORK}
     if not names or force:
         return
+    marker = out / INCOMPLETE
+    if marker.exists():
+        if _marker_lines(marker)[:1] == [recipe.name]:
+            return
+        raise OutputError(f"{out}: holds an incomplete build of another recipe; choose another --out "
+                          "or pass --force to replace it")
     manifest = read_manifest(out)
     if manifest is not None and manifest.get("recipe", {}).get("name") == recipe.name:
-        return
-    marker = out / INCOMPLETE
-    if marker.exists() and marker.read_text(encoding="utf-8").strip() == recipe.name:
         return
     what = (f"a build of recipe '{manifest['recipe']['name']}'" if manifest and "recipe" in manifest
             else "files that are not a bivocab build of this recipe")
@@ -114,50 +123,108 @@ def check_output_dir(out: Path, recipe: Recipe, force: bool) -> None:
 
 
 def build(recipe: Recipe | str | os.PathLike[str], out: str | os.PathLike[str], jobs: int = 1,
-          force: bool = False, progress: Progress = _quiet) -> BuildResult:
-    """Build every condition of ``recipe`` into directory ``out`` and return the summary."""
+          force: bool = False, progress: Progress = _quiet, resume: bool = False) -> BuildResult:
+    """Build every condition of ``recipe`` into directory ``out`` and return the summary.
+
+    Crash safety: every file goes to a temporary name and is renamed into place; from the
+    first write until ``build.json`` (written last) is in place, ``out`` holds the incomplete
+    marker, so a killed build never leaves a directory that looks complete.  With ``resume``
+    the shards an interrupted build of the same recipe, inputs and versions completed are
+    reused after their hashes are checked (see :mod:`bivocab.resume`).
+    """
     if not isinstance(recipe, Recipe):
         recipe = load_recipe(recipe)
     if jobs < 1:
         raise BivocabError(f"--jobs must be >= 1, got {jobs}")
     out = Path(out)
-    check_output_dir(out, recipe, force)
+    if out.exists() and not out.is_dir():
+        raise OutputError(f"{out}: exists and is not a directory")
     try:
         out.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise OutputError(f"{out}: cannot create output directory: {exc.strerror}") from None
     if not os.access(out, os.W_OK):
         raise OutputError(f"{out}: output directory is not writable")
-    with build_lock(out):
-        previous = read_manifest(out) if (out / MANIFEST).exists() else None
-        work = out / WORK
-        try:
-            # From here until build.json is renamed into place the directory is incomplete.
-            with contextlib.suppress(FileNotFoundError):
-                (out / MANIFEST).unlink()
-            atomic_write_text(out / INCOMPLETE, recipe.name + "\n")
-            shutil.rmtree(work, ignore_errors=True)
-            work.mkdir()
-            result = _build_into(recipe, out, work, jobs, progress)
-            _remove_stale(out, previous, result.manifest)
-            (out / INCOMPLETE).unlink()
-            return result
-        except OSError as exc:
-            raise OutputError(f"{out}: cannot write the build: {exc.strerror or exc}"
-                              + (" (disk full)" if getattr(exc, "errno", None) == 28 else "")) from None
-        finally:
-            shutil.rmtree(work, ignore_errors=True)
+    try:
+        with build_lock(out):
+            return _build_locked(recipe, out, jobs, force, progress, resume)
+    except OSError as exc:
+        raise write_error(out, exc) from None
 
 
-def _remove_stale(out: Path, previous: dict[str, Any] | None, manifest: dict[str, Any]) -> None:
-    if not previous:
-        return
+def _build_locked(recipe: Recipe, out: Path, jobs: int, force: bool, progress: Progress,
+                  resume: bool) -> BuildResult:
+    work = out / WORK
+    try:
+        check_output_dir(out, recipe, force)
+        was_incomplete = (out / INCOMPLETE).exists()
+        journal = ShardJournal(out, resume)
+        stale = _known_files(out, journal)
+        # From here until build.json is renamed into place the directory is incomplete. The
+        # marker lists the files of earlier builds, so that a rerun after a kill still removes them.
+        atomic_write_text(out / INCOMPLETE, "\n".join([recipe.name, *sorted(stale)]) + "\n")
+        fsync_dir(out)
+        with contextlib.suppress(FileNotFoundError):
+            (out / MANIFEST).unlink()
+        remove_temp_files(out)
+        shutil.rmtree(work, ignore_errors=True)
+        work.mkdir()
+
+        meter = progress if isinstance(progress, BuildMeter) else BuildMeter(on_stage=progress)
+        meter.stage_hooks.insert(0, lambda stage: checkpoint(f"stage:{stage}"))
+        result = _build_into(recipe, out, work, jobs, meter, journal)
+        _remove_stale(out, stale, result.manifest)
+        for directory in {(out / f["path"]).parent for f in result.manifest["files"]}:
+            fsync_dir(directory)
+        checkpoint("manifest")
+        atomic_write_text(out / MANIFEST, canonical_json(result.manifest))
+        fsync_dir(out)
+        checkpoint("finish")
+        journal.remove()
+        (out / INCOMPLETE).unlink()
+        fsync_dir(out)
+        return dataclasses.replace(result, was_incomplete=was_incomplete)
+    finally:
+        shutil.rmtree(work, ignore_errors=True)
+
+
+def _marker_lines(marker: Path) -> list[str]:
+    try:
+        return marker.read_text(encoding="utf-8").splitlines()
+    except (OSError, UnicodeDecodeError):
+        return []
+
+
+def _known_files(out: Path, journal: ShardJournal) -> set[str]:
+    """Files of earlier builds in ``out``: the last complete build.json, the list an interrupted
+    build carried in its marker, and the shards it journaled."""
+    known = set(_marker_lines(out / INCOMPLETE)[1:]) | journal.known_paths()
+    previous = None
+    with contextlib.suppress(OutputError):  # an unreadable build.json (--force) lists nothing
+        previous = read_manifest(out)
+    if previous:
+        known |= {entry.get("path", "") for entry in previous.get("files", [])}
+    return {p for p in known if p and not os.path.isabs(p) and ".." not in Path(p).parts
+            and p not in CONTROL_FILES}
+
+
+def _remove_stale(out: Path, known: set[str], manifest: dict[str, Any]) -> None:
+    """Delete what earlier builds left that this one did not write: the files they listed, and
+    any other file in a directory of this build's files (e.g. a shard of an interrupted run
+    with more shards). Directories left empty go too."""
     keep = {f["path"] for f in manifest["files"]}
-    for entry in previous.get("files", []):
-        path = entry.get("path", "")
-        if path not in keep and not os.path.isabs(path) and ".." not in Path(path).parts:
-            with contextlib.suppress(FileNotFoundError):
-                (out / path).unlink()
+    candidates = set(known)
+    for directory in {Path(p).parent for p in keep} - {Path(".")}:
+        for entry in os.scandir(out / directory):
+            if entry.is_file(follow_symlinks=False):
+                candidates.add((directory / entry.name).as_posix())
+    for path in sorted(candidates - keep):
+        with contextlib.suppress(FileNotFoundError):
+            (out / path).unlink()
+        parent = (out / path).parent
+        while parent != out and parent.is_dir() and not any(parent.iterdir()):
+            parent.rmdir()
+            parent = parent.parent
 
 
 def _scan_tasks(recipe: Recipe, files: list[InputFile], keep_text: bool) -> Iterator[ScanTask]:
@@ -232,20 +299,14 @@ def _without_cyclic_gc(fn: Callable[..., BuildResult]) -> Callable[..., BuildRes
 
 
 @_without_cyclic_gc
-def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Progress) -> BuildResult:
-    meter = progress if isinstance(progress, BuildMeter) else BuildMeter(on_stage=progress)
+def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMeter,
+                journal: ShardJournal) -> BuildResult:
     tags = recipe.tags
     files = input_files(recipe)
-    hashes = {}
-    with meter.stage("hash inputs", total=len(files), unit="files") as advance:
-        for source in files:
-            try:
-                hashes[source.display] = file_sha256(source.path)
-            except FileNotFoundError:
-                raise BivocabError(f"{source.display}: input file not found") from None
-            except OSError as exc:
-                raise BivocabError(f"{source.display}: cannot read input: {exc.strerror or exc}") from None
-            advance(1)
+    with meter.stage("hash inputs", total=len(files), unit="files"):
+        input_states = hash_inputs(files)
+    hashes = {display: state.sha256 for display, state in input_states.items()}
+    journal.begin(build_fingerprint(recipe.resolved(), hashes))
 
     scans = [LanguageScan(tag) for tag in tags]
     writers = [_WorkArrays(work, tag) for tag in tags]
@@ -274,6 +335,7 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
             advance(result.bytes_read, words=len(global_tokens))
     release_tables()
     arrays = [w.close() for w in writers]
+    check_inputs_unchanged(files, input_states)
     for scan in scans:
         scan.split_counts = scan.split_counts[:, :len(scan.table)]
     if any(scan.sentences == 0 for scan in scans):
@@ -297,6 +359,8 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
                           build_vocabulary(cond, tags, surfaces, [scan.split_counts[0] for scan in scans]))
             advance(1)
 
+    journal.bind_vocabularies([vocab_tsv(v).encode("utf-8") for v in vocabs]
+                              + [model for sub in subwords.values() for model in sub.models])
     advance = meter.begin("shards", total=sum(s.sentences for s in scans), unit="sentences")
     written: list[str] = []
     shard_paths: dict[str, dict[str, list[str]]] = {c.name: {} for c in recipe.conditions}
@@ -318,30 +382,19 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
                                [w.paths["tokens"] for w in writers], [a["lengths"] for a in arrays], starts)
         for shard_index, members in enumerate(shard_list):
             stem = shard_stem(split, shard_index)
-            langs = order.langs[members]
-            rows_here = order.rows[members]
-            prov = np.empty(len(members), dtype=PROVENANCE_DTYPE)
-            gathered = []
-            for li in range(len(tags)):
-                mask = langs == li
-                r = rows_here[mask]
-                prov["input"][mask] = np.asarray(arrays[li]["inputs"])[r]
-                prov["line"][mask] = np.asarray(arrays[li]["lines"])[r]
-                lengths = np.asarray(arrays[li]["lengths"])[r]
-                types = buckets.tokens(li, shard_index, r, lengths)
-                gathered.append((mask, lengths, types))
-            path = f"provenance/{stem}.npy"
-            write_npy(out / path, prov)
-            written.append(path)
-            for cond, vocab in zip(recipe.conditions, vocabs):
-                sub = subwords.get(cond.name)
-                here = gathered if sub is None else [
-                    (mask, *sub.gather(li, rows_here[mask])) for li, (mask, _, _) in enumerate(gathered)]
-                paths = _write_condition_shard(shard_writer, cond.name, stem, vocab, langs, here,
-                                               stats[cond.name][split], prov)
-                written += paths
+            paths = [f"provenance/{stem}.npy"] + [p for c in recipe.conditions
+                                                  for p in shard_writer.paths(f"{c.name}/{stem}")]
+            for cond in recipe.conditions:
                 shard_paths[cond.name][split].append(f"{cond.name}/{stem}")
-            advance(len(members), words=sum(len(t) for _, _, t in gathered))
+            written += paths
+            shard_stats = journal.reusable(stem, paths)
+            if shard_stats is None:
+                shard_stats = _write_shard(shard_writer, recipe, vocabs, subwords, stem, order.langs[members],
+                                           order.rows[members], arrays, buckets, shard_index)
+                journal.record(stem, paths, shard_stats)
+            for cond in recipe.conditions:
+                _add_stat(stats[cond.name][split], shard_stats[cond.name])
+            advance(len(members), words=shard_stats[recipe.conditions[0].name][1])
         buckets.remove()
 
     advance = meter.begin("vocab files", total=len(recipe.conditions), unit="conditions")
@@ -375,17 +428,52 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, progress: Prog
         ConditionSummary(cond.name, cond.policy, len(vocab), {
             s: SplitSummary(v[0], v[1], tuple(v[2]), tuple(v[3])) for s, v in stats[cond.name].items()})
         for cond, vocab in zip(recipe.conditions, vocabs))
-    meter.begin("manifest", total=None, unit="")
-    manifest = _manifest(recipe, out, files, hashes, per_file, scans, vocabs, shard_paths, written, summaries)
+    meter.begin("manifest")
+    manifest = _manifest(recipe, out, files, hashes, per_file, scans, vocabs, shard_paths, written, summaries,
+                         journal.records)
     for name, sub in subwords.items():
         entry = manifest["conditions"][name]
         entry.update(models={t: model_path(name, t) for t in tags}, subword=sub.record,
                      tokenizers={t: tokenizer_path(name, t) for t in tags} if sub.record["units"] == "unigram" else {})
     manifest["mixing"] = mixing
     manifest["hygiene"] = hygiene.report()
-    atomic_write_text(out / MANIFEST, canonical_json(manifest))
     meter.end()
-    return BuildResult(out, manifest, summaries)
+    return BuildResult(out, manifest, summaries, tuple(journal.reused),
+                       len(journal.reused) + len(journal.written))
+
+
+def _write_shard(writer: ShardWriter, recipe: Recipe, vocabs: list[Vocabulary],
+                 subwords: dict[str, SubwordCondition], stem: str, langs: np.ndarray, rows_here: np.ndarray,
+                 arrays: list[dict[str, np.ndarray]], buckets: ShardBuckets, shard_index: int) -> dict:
+    """Write one shard (provenance, then every condition); return its statistics per condition."""
+    prov = np.empty(len(langs), dtype=PROVENANCE_DTYPE)
+    gathered = []
+    for li in range(len(recipe.tags)):
+        mask = langs == li
+        r = rows_here[mask]
+        prov["input"][mask] = np.asarray(arrays[li]["inputs"])[r]
+        prov["line"][mask] = np.asarray(arrays[li]["lines"])[r]
+        lengths = np.asarray(arrays[li]["lengths"])[r]
+        types = buckets.tokens(li, shard_index, r, lengths)
+        gathered.append((mask, lengths, types))
+    write_npy(writer.out / f"provenance/{stem}.npy", prov)
+    shard_stats = {}
+    for cond, vocab in zip(recipe.conditions, vocabs):
+        sub = subwords.get(cond.name)
+        here = gathered if sub is None else [
+            (mask, *sub.gather(li, rows_here[mask])) for li, (mask, _, _) in enumerate(gathered)]
+        stat = shard_stats[cond.name] = [0, 0, [0] * len(recipe.tags), [0] * len(recipe.tags)]
+        _write_condition_shard(writer, cond.name, stem, vocab, langs, here, stat, prov)
+    return shard_stats
+
+
+def _add_stat(total: list, part: list) -> None:
+    """Add one shard's [sentences, tokens, oov per language, tokens per language] to a split's."""
+    total[0] += part[0]
+    total[1] += part[1]
+    for li in range(len(total[2])):
+        total[2][li] += part[2][li]
+        total[3][li] += part[3][li]
 
 
 def _count_by_split(scan: LanguageScan, global_tokens: np.ndarray, result: ScanResult) -> None:
@@ -453,10 +541,18 @@ def types_tsv(scan: LanguageScan) -> str:
     return tsv_text(["surface", "class", "count_train", "count_valid", "count_test"], rows)
 
 
+def _input_report(counters: Counter) -> Counter:
+    """An input's counters as recorded; an empty file (no line at all) is counted as such."""
+    report = Counter({"lines_read": 0, **counters})
+    if not report["lines_read"]:
+        report["empty_file"] = 1
+    return report
+
+
 def _manifest(recipe: Recipe, out: Path, files: list[InputFile], hashes: dict[str, str],
               per_file: list[Counter], scans: list[LanguageScan], vocabs: list[Vocabulary],
               shard_paths: dict[str, dict[str, list[str]]], written: list[str],
-              summaries: tuple[ConditionSummary, ...]) -> dict[str, Any]:
+              summaries: tuple[ConditionSummary, ...], records: dict[str, dict[str, Any]]) -> dict[str, Any]:
     recipe_file = Path(recipe.path).resolve()
     try:
         recipe_sha = sha256_file(recipe_file)
@@ -464,7 +560,7 @@ def _manifest(recipe: Recipe, out: Path, files: list[InputFile], hashes: dict[st
         recipe_sha = ""
     inputs = [{"path": f.display, "language": f.language, "sha256": hashes[f.display],
                "lines": int(per_file[i].get("lines_read", 0)),
-               "report": {k: int(v) for k, v in sorted(per_file[i].items())}}
+               "report": {k: int(v) for k, v in sorted(_input_report(per_file[i]).items())}}
               for i, f in enumerate(files)]
     conditions = {}
     for cond, vocab, summary in zip(recipe.conditions, vocabs, summaries):
@@ -478,10 +574,7 @@ def _manifest(recipe: Recipe, out: Path, files: list[InputFile], hashes: dict[st
                           "tokens_per_language": dict(zip(recipe.tags, v.tokens_per_lang))}
                       for s, v in summary.splits.items()},
         }
-    files_out = []
-    for path in sorted(set(written)):
-        p = out / path
-        files_out.append({"path": path, "sha256": sha256_file(p), "bytes": p.stat().st_size})
+    files_out = [records.get(path) or file_record(out, path) for path in sorted(set(written))]
     return {
         "bivocab": __version__,
         "recipe": recipe.resolved(),

@@ -40,6 +40,10 @@ def _only_printable(text: str) -> bool:
     return text.replace("\n", " ").isprintable()
 
 
+# A kept line this long is counted: it is most likely not one sentence (a lost line break).
+LONG_LINE_CHARS = 100_000
+
+
 @dataclass(frozen=True)
 class CleanLines:
     """The kept lines of a block, with their 1-based line numbers in the input file."""
@@ -148,6 +152,9 @@ def clean_block(block: Block, spec: CleanSpec, display: str) -> CleanLines:
     if (normalised is raw_text and not spec.max_chars and len(present) == len(decoded)
             and block.line_numbers is None and "" not in cleaned):
         # Nothing changed, dropped or renumbered: the per-line checks below would keep every line.
+        long_lines = sum(map(LONG_LINE_CHARS.__lt__, map(len, cleaned)))
+        if long_lines:
+            counters["long_lines_kept"] += long_lines
         return CleanLines(cleaned, list(range(block.first_line, block.first_line + len(cleaned))), counters)
     kept: list[str] = []
     numbers: list[int] = []
@@ -159,6 +166,8 @@ def clean_block(block: Block, spec: CleanSpec, display: str) -> CleanLines:
         if spec.max_chars and len(text) > spec.max_chars:
             counters["too_long_dropped"] += 1
             continue
+        if len(text) > LONG_LINE_CHARS:
+            counters["long_lines_kept"] += 1
         changed += text != raw
         kept.append(text)
         numbers.append(block.line_number(offset))

@@ -31,6 +31,7 @@ def main() -> None:
 @click.argument("directory", type=click.Path(file_okay=False, path_type=Path))
 def init(directory: Path) -> None:
     """Write a commented starter recipe into DIRECTORY/recipe.toml."""
+    from .manifest import atomic_write_text
     from .recipe import STARTER_RECIPE
 
     target = directory / "recipe.toml"
@@ -38,9 +39,9 @@ def init(directory: Path) -> None:
         raise BivocabError(f"{target}: already exists; not overwriting it")
     try:
         directory.mkdir(parents=True, exist_ok=True)
-        target.write_text(STARTER_RECIPE, encoding="utf-8")
     except OSError as exc:
-        raise BivocabError(f"{target}: cannot write: {exc.strerror}") from None
+        raise BivocabError(f"{directory}: cannot create directory: {exc.strerror}") from None
+    atomic_write_text(target, STARTER_RECIPE)
     click.echo(f"wrote {target}; edit the inputs, then run: bivocab check {target}")
 
 
@@ -62,21 +63,30 @@ def check(recipe: Path) -> None:
 @click.option("--jobs", default=1, show_default=True, type=click.IntRange(min=1), help="Worker processes.")
 @click.option("--force", is_flag=True, help="Replace a directory that holds something else.")
 @click.option("--quiet", is_flag=True, help="Print nothing but errors.")
+@click.option("--resume", is_flag=True, help="Reuse the hash-checked shards of an interrupted build of the same recipe.")
 @click.option("--profile", is_flag=True, help="Print the time spent in each stage (to stderr).")
-def build_command(recipe: Path, out: Path, jobs: int, force: bool, quiet: bool, profile: bool) -> None:
+def build_command(recipe: Path, out: Path, jobs: int, force: bool, quiet: bool, resume: bool, profile: bool) -> None:
     """Build every condition of RECIPE into OUT."""
     from .build import build
     from .progress import BuildMeter
-    from .report import summary_text
+    from .report import input_notes, summary_text
 
     meter = BuildMeter(bars=not quiet and sys.stderr.isatty())
     try:
-        result = build(recipe, out, jobs=jobs, force=force, progress=meter)
+        result = build(recipe, out, jobs=jobs, force=force, progress=meter, resume=resume)
     finally:
         meter.close()
     if profile:
         click.echo(meter.profile_text(), err=True)
+    if result.was_incomplete and not quiet:
+        click.echo(f"note: {out} held an incomplete build (interrupted or failed); it was "
+                   + ("resumed" if resume else "rebuilt (--resume would reuse its finished shards)"), err=True)
+    if resume and not quiet:
+        click.echo(f"resume: reused {len(result.reused_shards)} of {result.total_shards} shards "
+                   "(each file checked against its recorded sha256)", err=True)
     if not quiet:
+        for note in input_notes(result.manifest):
+            click.echo(f"note: {note}", err=True)
         click.echo(summary_text(result))
 
 
@@ -123,6 +133,24 @@ def audit(directory: Path, lexicons: tuple[str, ...], translations: Path | None,
     if quiet and not as_json:
         return
     click.echo(canonical_json(result.summary) if as_json else audit_text(result), nl=not as_json)
+
+
+@main.command(name="verify")
+@click.argument("directory", type=click.Path(file_okay=False, path_type=Path))
+@click.option("--hashes-only", is_flag=True, help="Re-hash the files on disk against build.json; do not rebuild.")
+@click.option("--jobs", default=1, show_default=True, type=click.IntRange(min=1), help="Worker processes for the rebuild.")
+@click.option("--json", "as_json", is_flag=True, help="Print the report as JSON.")
+@click.option("--scratch", type=click.Path(file_okay=False, exists=True, path_type=Path),
+              help="Directory for the temporary rebuild (default: the system's temporary directory).")
+def verify_command(directory: Path, hashes_only: bool, jobs: int, as_json: bool, scratch: Path | None) -> None:
+    """Rebuild DIRECTORY from its build.json and compare every file (exit 1 on any difference)."""
+    from .verify import report_json, report_text, verify, verify_or_fail
+
+    report = verify(directory, hashes_only=hashes_only, jobs=jobs, scratch=scratch)
+    for warning in report.warnings:
+        click.echo(f"warning: {warning}", err=True)
+    click.echo(report_json(report) if as_json else report_text(report))
+    verify_or_fail(report)
 
 
 if __name__ == "__main__":

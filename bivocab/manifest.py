@@ -1,23 +1,45 @@
-"""Build manifest (build.json), hashing, atomic writes and the build-directory lock."""
+"""Build manifest (build.json), hashing, atomic writes, the build-directory lock and the
+markers that tell a complete build from an interrupted one."""
 
 from __future__ import annotations
 
 import contextlib
+import errno
 import fcntl
+import fnmatch
 import hashlib
 import json
 import os
 import platform
+import re
+import sys
+import time
 import unicodedata
+from dataclasses import dataclass
 from importlib import metadata
 from pathlib import Path
-from typing import IO, Any, Iterator
+from typing import IO, Any, Iterable, Iterator
 
-from .errors import OutputError
+import numpy as np
+
+from .errors import InputError, OutputError
+from .sources import file_sha256
 
 MANIFEST = "build.json"
 LOCK = ".bivocab.lock"
 WORK = ".bivocab-work"
+# Present from the start of a build until build.json is in place: the directory is incomplete.
+INCOMPLETE = ".bivocab-incomplete"
+# Completed shards of the running build, one JSON line each (see bivocab.resume).
+JOURNAL = ".bivocab-journal.jsonl"
+CONTROL_FILES = frozenset({MANIFEST, LOCK, INCOMPLETE, JOURNAL})
+# What `bivocab audit` and `bivocab probe` write into a build directory: analyses of the build,
+# not part of it (not in build.json, not compared by verify).
+ANALYSIS_DIRS = ("audit", "probe")
+_TEMP_RE = re.compile(r"^\..+\.tmp-\d+$")
+# Test hook: a build pauses at the named point (fnmatch pattern) so a test can kill it there.
+PAUSE_ENV = "BIVOCAB_TEST_PAUSE"
+PAUSE_SECONDS = 120
 # Libraries whose versions can change what a build writes.
 OUTPUT_LIBRARIES = ("bivocab", "numpy", "regex", "tokenizers", "pyarrow", "langcodes", "zstandard",
                     "sentencepiece", "protobuf")
@@ -42,21 +64,45 @@ def environment() -> dict[str, str]:
     return env
 
 
+def checkpoint(point: str) -> None:
+    """Pause here when ``$BIVOCAB_TEST_PAUSE`` matches ``point`` (crash-safety tests kill the
+    build while it waits); a no-op otherwise. Points: ``stage:<name>``, ``write:<path>``
+    (a file's bytes are in its temporary file, not yet renamed), ``manifest``, ``finish``."""
+    pattern = os.environ.get(PAUSE_ENV)
+    if pattern and fnmatch.fnmatchcase(point, pattern):
+        print(f"paused at {point}", file=sys.stderr, flush=True)
+        time.sleep(PAUSE_SECONDS)
+
+
+def write_error(path: Path, exc: OSError) -> OutputError:
+    """The one-line message for a failed write, saying 'disk full' when it is."""
+    full = " (disk full)" if exc.errno in (errno.ENOSPC, errno.EDQUOT) else ""
+    return OutputError(f"{path}: cannot write: {exc.strerror or exc}{full}")
+
+
+def temp_name(path: Path) -> Path:
+    return path.with_name(f".{path.name}.tmp-{os.getpid()}")
+
+
 @contextlib.contextmanager
 def atomic_open(path: Path, mode: str = "wb") -> Iterator[IO[Any]]:
     """Write to a temporary name in the same directory, fsync, then rename into place.
-    On any error the temporary file is removed and ``path`` is left untouched."""
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(f".{path.name}.tmp-{os.getpid()}")
+    On any error the temporary file is removed and ``path`` is left untouched; an OSError
+    becomes an :class:`OutputError` naming ``path``."""
+    tmp = temp_name(path)
     try:
+        path.parent.mkdir(parents=True, exist_ok=True)
         with open(tmp, mode) as handle:
             yield handle
             handle.flush()
+            checkpoint(f"write:{path}")
             os.fsync(handle.fileno())
         os.replace(tmp, path)
-    except BaseException:
+    except BaseException as exc:
         with contextlib.suppress(FileNotFoundError):
             tmp.unlink()
+        if isinstance(exc, OSError):
+            raise write_error(path, exc) from None
         raise
 
 
@@ -68,6 +114,143 @@ def atomic_write_text(path: Path, text: str) -> None:
 def canonical_json(data: Any) -> str:
     """Sorted keys, two-space indent, UTF-8, a final newline: stable bytes for equal data."""
     return json.dumps(data, sort_keys=True, indent=2, ensure_ascii=False) + "\n"
+
+
+def fsync_dir(directory: Path) -> None:
+    """Make the renames inside ``directory`` durable (a rename is only on disk once its
+    directory is synced)."""
+    fd = os.open(directory, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
+def remove_temp_files(out: Path) -> int:
+    """Delete temporary files an interrupted writer left under ``out``; return how many."""
+    removed = 0
+    for root, _dirs, names in os.walk(out):
+        for name in names:
+            if _TEMP_RE.match(name):
+                with contextlib.suppress(FileNotFoundError):
+                    os.unlink(os.path.join(root, name))
+                removed += 1
+    return removed
+
+
+def is_temp_file(name: str) -> bool:
+    return bool(_TEMP_RE.match(name))
+
+
+def array_digest(array: np.ndarray) -> str:
+    """sha256 of the values of an array, independent of how they are stored: integers are
+    hashed as little-endian int64 (so a uint16 and a uint32 array of equal ids agree), the
+    fields of a structured array one after another by name.
+
+    >>> array_digest(np.array([1, 2], np.uint16)) == array_digest(np.array([1, 2], np.int64))
+    True
+    """
+    digest = hashlib.sha256()
+    _update_array(digest, array)
+    return digest.hexdigest()
+
+
+def _update_array(digest: Any, array: np.ndarray) -> None:
+    if array.dtype.names:
+        for name in array.dtype.names:
+            digest.update(f"field {name}\n".encode("utf-8"))
+            _update_array(digest, array[name])
+        return
+    flat = array.reshape(-1)
+    kind = array.dtype.kind
+    target = "<u8" if kind == "u" and array.dtype.itemsize == 8 else ("<i8" if kind in "iub" else None)
+    digest.update(f"{target or array.dtype.str} {array.shape}\n".encode("utf-8"))
+    step = 1 << 20  # bounded memory for large memory-mapped shards
+    for start in range(0, len(flat), step):
+        part = np.asarray(flat[start:start + step])
+        digest.update((part.astype(target) if target else np.ascontiguousarray(part)).tobytes())
+
+
+def _column_digest(digest: Any, column: Any) -> None:
+    import pyarrow as pa
+
+    array = column.combine_chunks() if isinstance(column, pa.ChunkedArray) else column
+    if pa.types.is_list(array.type) or pa.types.is_large_list(array.type):
+        offsets = np.asarray(array.offsets)
+        _update_array(digest, offsets - offsets[0])
+        _column_digest(digest, array.flatten())
+    elif pa.types.is_integer(array.type) and array.null_count == 0:
+        _update_array(digest, array.to_numpy())
+    else:  # strings, dictionaries, nulls: compare by value
+        digest.update(canonical_json(array.to_pylist()).encode("utf-8"))
+
+
+def content_sha256(path: Path) -> str | None:
+    """Digest of the data in a shard file (``.npy``: the array; ``.parquet``: each column by
+    name), so that a rebuild can tell changed data from a changed container (npy header,
+    integer width, Parquet writer metadata). None for other files, whose bytes are their content."""
+    if path.suffix == ".npy":
+        return array_digest(np.load(path, mmap_mode="r", allow_pickle=False))
+    if path.suffix == ".parquet":
+        import pyarrow.parquet as pq
+
+        table = pq.read_table(path)
+        digest = hashlib.sha256()
+        for name in sorted(table.column_names):
+            digest.update(f"column {name}\n".encode("utf-8"))
+            _column_digest(digest, table.column(name))
+        return digest.hexdigest()
+    return None
+
+
+def file_record(out: Path, path: str) -> dict[str, Any]:
+    """The build.json ``files`` entry of one output file."""
+    full = out / path
+    record: dict[str, Any] = {"path": path, "sha256": sha256_file(full), "bytes": full.stat().st_size}
+    content = content_sha256(full)
+    if content is not None:
+        record["content_sha256"] = content
+    return record
+
+
+@dataclass(frozen=True)
+class InputState:
+    """An input file as it was hashed: its digest and the stat fields that a change moves."""
+
+    sha256: str
+    size: int
+    mtime_ns: int
+    inode: int
+
+
+def hash_inputs(files: Iterable[Any]) -> dict[str, InputState]:
+    """sha256 and stat of every input (``InputFile``; a saved dataset directory is hashed
+    member by member), keyed by its display path."""
+    states = {}
+    for source in files:
+        try:
+            before = os.stat(source.path)
+            digest = file_sha256(source.path)
+        except FileNotFoundError:
+            raise InputError(f"{source.display}: input file not found") from None
+        except OSError as exc:
+            raise InputError(f"{source.display}: cannot read input: {exc.strerror or exc}") from None
+        states[source.display] = InputState(digest, before.st_size, before.st_mtime_ns, before.st_ino)
+    return states
+
+
+def check_inputs_unchanged(files: Iterable[Any], states: dict[str, InputState]) -> None:
+    """Raise if an input changed between hashing and the end of reading: the recorded sha256
+    would then not describe the text the build used."""
+    for source in files:
+        state = states[source.display]
+        try:
+            now = os.stat(source.path)
+        except OSError:
+            now = None
+        if now is None or (now.st_size, now.st_mtime_ns, now.st_ino) != (state.size, state.mtime_ns, state.inode):
+            raise InputError(f"{source.display}: input file changed while the build was reading it; "
+                             "rebuild when it is stable")
 
 
 def read_manifest(out: Path) -> dict[str, Any] | None:
@@ -95,3 +278,41 @@ def build_lock(out: Path) -> Iterator[None]:
     finally:
         fcntl.flock(handle.fileno(), fcntl.LOCK_UN)
         handle.close()
+
+
+def is_locked(out: Path) -> bool:
+    """True while a build holds the lock of ``out`` (never creates the lock file)."""
+    try:
+        handle = open(out / LOCK, "r")
+    except OSError:
+        return False
+    with handle:
+        try:
+            fcntl.flock(handle.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            return True
+        fcntl.flock(handle.fileno(), fcntl.LOCK_UN)
+    return False
+
+
+def incomplete_reason(out: Path) -> str | None:
+    """Why ``out`` is not a complete build that may be read, or None when it is one."""
+    if (out / INCOMPLETE).exists():
+        how = ("a build is writing to it now" if is_locked(out)
+               else "the build that wrote it was interrupted or failed")
+        return (f"{out}: incomplete build ({how}); run `bivocab build` again "
+                "(--resume reuses the finished shards)")
+    if not (out / MANIFEST).exists():
+        return f"{out}: no {MANIFEST}: not a bivocab build directory"
+    return None
+
+
+def complete_manifest(out: Path) -> dict[str, Any]:
+    """build.json of a complete build; an :class:`OutputError` for an incomplete directory."""
+    reason = incomplete_reason(Path(out))
+    if reason:
+        raise OutputError(reason)
+    manifest = read_manifest(Path(out))
+    if manifest is None:  # removed since the check above
+        raise OutputError(f"{out}: no {MANIFEST}: not a bivocab build directory")
+    return manifest

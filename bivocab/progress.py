@@ -40,12 +40,12 @@ class BuildMeter:
     """Stage timings of one build, with optional rich progress bars on stderr.
 
     ``on_stage`` is called with each stage name as it starts (for simple callers that only want
-    to print the stage).
+    to print the stage); the build adds hooks of its own to ``stage_hooks``.
     """
 
     def __init__(self, bars: bool = False, on_stage: Callable[[str], None] | None = None) -> None:
         self.bars = bars
-        self.on_stage = on_stage
+        self.stage_hooks: list[Callable[[str], None]] = [on_stage] if on_stage is not None else []
         self.timings: list[StageTiming] = []
         self._progress: Progress | None = None
         self._open: tuple[StageTiming, float, TaskID | None] | None = None
@@ -65,8 +65,8 @@ class BuildMeter:
         self.end()
         timing = StageTiming(name, unit=unit)
         self.timings.append(timing)
-        if self.on_stage is not None:
-            self.on_stage(name)
+        for hook in self.stage_hooks:
+            hook(name)
         progress = self._bar_display() if self.bars else None
         task = progress.add_task(name, total=total, words=0, unit=unit) if progress is not None else None
         self._open = (timing, time.perf_counter(), task)

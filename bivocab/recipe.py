@@ -263,7 +263,15 @@ _VOCAB_KEYS: dict[str, Any] = {
 
 
 def is_valid_language_tag(tag: str) -> bool:
-    """BCP 47 (RFC 5646) well-formedness and validity, checked by the langcodes library."""
+    """BCP 47 (RFC 5646) well-formedness and validity, checked by the langcodes library.
+
+    langcodes also accepts "en_US"; RFC 5646 section 2.1 allows only ASCII letters, digits and "-".
+
+    >>> is_valid_language_tag("zh-Hant"), is_valid_language_tag("en_US")
+    (True, False)
+    """
+    if not re.fullmatch(r"[A-Za-z0-9]{1,8}(-[A-Za-z0-9]{1,8})*", tag):
+        return False
     try:
         return langcodes.tag_is_valid(tag)
     except Exception:  # langcodes raises on some malformed input instead of returning False
@@ -300,6 +308,8 @@ def load_recipe(path: str | os.PathLike[str], resolve_inputs: bool = True) -> Re
     build = r.table("build", {"name": str, "seed": int}, required=("name", "seed"))
     if not build["name"].strip():
         raise r.fail("build", 0, "name", "must not be empty")
+    if build["seed"] < 0:  # numpy's SeedSequence, which the mixing uses, takes no negative seed
+        raise r.fail("build", 0, "seed", "must be >= 0")
 
     languages = _read_languages(r, path)
     clean = CleanSpec(**r.table("clean", {
@@ -470,6 +480,7 @@ def resolve_recipe_inputs(recipe: Recipe) -> Recipe:
     """Expand each language's globs into a sorted file list; a glob matching nothing is an error."""
     base = recipe.base_dir
     languages = []
+    seen: dict[str, str] = {}  # real path -> path as matched, across both languages
     for lang in recipe.languages:
         files: list[str] = []
         for pattern in lang.inputs:
@@ -485,6 +496,15 @@ def resolve_recipe_inputs(recipe: Recipe) -> Recipe:
                 raise InputError(f"{recipe.path}: [languages.{lang.tag}] inputs: {pattern!r} matches no file")
             for m in matches:
                 rel = os.path.relpath(m, base)
+                if not os.path.exists(m):  # glob lists links it cannot follow
+                    raise InputError(f"{rel}: broken symbolic link or symbolic link loop "
+                                     f"(matched by {pattern!r} in [languages.{lang.tag}])")
+                # The same file reached twice (a symlinked directory, a cycle under **) would be read twice.
+                real = os.path.realpath(m)
+                if real in seen and seen[real] != rel:
+                    raise InputError(f"{rel}: is the same file as {seen[real]} (reached through a symbolic "
+                                     f"link); make the globs of [languages.{lang.tag}] match each file once")
+                seen[real] = rel
                 if rel not in files:
                     files.append(rel)
         languages.append(LanguageSpec(tag=lang.tag, inputs=lang.inputs, files=tuple(files), read=lang.read))

@@ -5,7 +5,7 @@ from __future__ import annotations
 import os
 
 from .build import BuildResult, input_files
-from .clean import clean_block
+from .clean import LONG_LINE_CHARS, clean_block
 from .recipe import SPLITS, Recipe
 from .sources import read_blocks
 
@@ -75,3 +75,37 @@ def summary_text(result: BuildResult) -> str:
         if j == 0:
             lines.append("  ".join("-" * w for w in widths))
     return f"build written to {result.out}\n" + "\n".join(lines)
+
+
+# Counters of build.json inputs[].report worth a line after a build (docs/bad-input.md), in order.
+_NOTE_TEXT = {
+    "empty_file": "empty file (no lines)",
+    "byte_order_marks_removed": "byte-order mark removed",
+    "cr_line_ends": "{n:,} CR or CRLF line ends read as line breaks",
+    "nul_characters": "{n:,} NUL characters replaced by spaces",
+    "control_characters_replaced": "{n:,} control characters replaced by spaces",
+    "invalid_utf8_replaced_lines": "{n:,} lines with invalid UTF-8 kept with U+FFFD",
+    "invalid_utf8_skipped_lines": "{n:,} lines with invalid UTF-8 skipped",
+    "empty_lines_dropped": "{n:,} empty lines dropped",
+    "too_long_dropped": "{n:,} lines longer than [clean] max_chars dropped",
+    "long_lines_kept": "{n:,} lines over " + f"{LONG_LINE_CHARS:,}"
+                       + " characters kept as one sentence each (set [clean] max_chars to drop them)",
+    "too_few_tokens_dropped": "{n:,} lines with fewer than [clean] min_tokens tokens dropped",
+    "too_many_tokens_dropped": "{n:,} lines with more than [clean] max_tokens tokens dropped",
+}
+
+
+def input_notes(manifest: dict) -> list[str]:
+    """One line per input whose report counted something the user should know about.
+
+    >>> input_notes({"inputs": [{"path": "de/a.txt", "report": {"lines_read": 3, "cr_line_ends": 3,
+    ...                                                              "empty_lines_dropped": 1}}]})
+    ['de/a.txt: 3 CR or CRLF line ends read as line breaks, 1 empty lines dropped']
+    """
+    notes = []
+    for entry in manifest.get("inputs", []):
+        report = entry.get("report", {})
+        parts = [text.format(n=report[key]) for key, text in _NOTE_TEXT.items() if report.get(key)]
+        if parts:
+            notes.append(f"{entry['path']}: " + ", ".join(parts))
+    return notes

@@ -206,9 +206,9 @@ def _parquet_rows(source: InputFile, builder: _BlockBuilder) -> Iterable[int]:
     key = source.read.field
     try:
         parquet = pq.ParquetFile(source.path)
-    except (pa.ArrowException, OSError) as exc:
+        schema = parquet.schema_arrow
+    except (pa.ArrowException, OSError, UnicodeDecodeError) as exc:  # invalid UTF-8 in the metadata
         raise InputError(f"{source.display}: not a readable Parquet file ({exc})") from None
-    schema = parquet.schema_arrow
     if key not in schema.names:
         raise InputError(f"{source.display}: no column '{key}' (columns: {', '.join(schema.names[:12])}); "
                          f"set field = \"...\" for this language")
@@ -222,7 +222,7 @@ def _parquet_rows(source: InputFile, builder: _BlockBuilder) -> Iterable[int]:
                 row += 1
                 _field_bytes(source, f"{source.display}: row {row}", value, builder, row)
                 yield 1
-    except (pa.ArrowException, OSError) as exc:
+    except (pa.ArrowException, OSError, UnicodeDecodeError) as exc:
         raise InputError(f"{source.display}: cannot read Parquet data after row {row} ({exc})") from None
 
 

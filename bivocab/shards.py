@@ -11,7 +11,6 @@ docs/mixing.md for its schema and writer options.
 
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Iterator
@@ -22,7 +21,7 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from .errors import BivocabError
-from .manifest import MANIFEST, atomic_open
+from .manifest import atomic_open, complete_manifest
 from .recipe import ShardSpec
 from .scan import ragged_gather
 
@@ -77,6 +76,11 @@ class ShardWriter:
         self.out, self.tags, self.input_paths = out, tags, input_paths
         self.npy = spec.format in ("npy", "npy+parquet")
         self.parquet = spec.format in ("parquet", "npy+parquet")
+
+    def paths(self, stem: str) -> list[str]:
+        """The files :meth:`write` writes for ``stem``, in order (relative to DIR)."""
+        return ([f"{stem}.{suffix}.npy" for suffix in ("tokens", "offsets", "langs")] if self.npy else []) \
+            + ([f"{stem}.parquet"] if self.parquet else [])
 
     def write(self, stem: str, tokens: np.ndarray, offsets: np.ndarray, langs: np.ndarray,
               provenance: np.ndarray) -> list[str]:
@@ -138,11 +142,7 @@ class ShardReader:
 
     def __init__(self, out: str | Path, condition: str, split: str):
         self.out = Path(out)
-        manifest_path = self.out / MANIFEST
-        try:
-            manifest = json.loads(manifest_path.read_text(encoding="utf-8"))
-        except FileNotFoundError:
-            raise BivocabError(f"{manifest_path}: no build.json: not a complete bivocab build") from None
+        manifest = complete_manifest(self.out)  # refuses an incomplete (killed or running) build
         conditions = manifest["conditions"]
         if condition not in conditions:
             raise BivocabError(f"{self.out}: no condition {condition!r} (have: {', '.join(sorted(conditions))})")

@@ -16,9 +16,12 @@ import hashlib
 import io
 import lzma
 import os
+import zlib
 from dataclasses import dataclass
 from pathlib import Path
 from typing import BinaryIO, Iterator
+
+import zstandard
 
 from .errors import InputError
 from .recipe import ReadSpec
@@ -82,10 +85,7 @@ def open_binary(path: Path, display: str) -> BinaryIO:
         if suffix in (".xz", ".lzma"):
             return lzma.open(path, "rb")
         if suffix == ".zst":
-            import zstandard
-
-            raw = open(path, "rb")
-            return io.BufferedReader(zstandard.ZstdDecompressor().stream_reader(raw, closefd=True))
+            return io.BufferedReader(_ZstdFrames(open(path, "rb")))
         return open(path, "rb")
     except FileNotFoundError:
         raise InputError(f"{display}: input file not found") from None
@@ -95,12 +95,55 @@ def open_binary(path: Path, display: str) -> BinaryIO:
         raise InputError(f"{display}: cannot open input: {exc.strerror or exc}") from None
 
 
+class _ZstdFrames(io.RawIOBase):
+    """Decompressed bytes of a file of one or more zstd frames. Unlike zstandard's stream reader,
+    which ends a cut-off file silently, it raises EOFError when the data stops inside a frame."""
+
+    def __init__(self, raw: BinaryIO):
+        self._raw = raw
+        self._context = zstandard.ZstdDecompressor()
+        self._frame = self._context.decompressobj()
+        self._in_frame = False
+        self._pending = b""
+
+    def readable(self) -> bool:
+        return True
+
+    def readinto(self, buffer) -> int:  # type: ignore[override]
+        while not self._pending:
+            data = self._raw.read(1 << 20)
+            if not data:
+                if self._in_frame:
+                    raise EOFError("zstd frame is incomplete")
+                return 0
+            out = []
+            while data:
+                if self._frame.eof:
+                    self._frame = self._context.decompressobj()
+                out.append(self._frame.decompress(data))
+                data = self._frame.unused_data if self._frame.eof else b""
+            self._in_frame = not self._frame.eof
+            self._pending = b"".join(out)
+        n = min(len(buffer), len(self._pending))
+        buffer[:n] = self._pending[:n]
+        self._pending = self._pending[n:]
+        return n
+
+    def close(self) -> None:
+        self._raw.close()
+        super().close()
+
+
+# What the codecs raise on corrupt data (zlib and zstandard errors are not OSErrors).
+_CORRUPT_DATA = (OSError, lzma.LZMAError, ValueError, zlib.error, zstandard.ZstdError)
+
+
 def _read(handle: BinaryIO, size: int, display: str) -> bytes:
     try:
         return handle.read(size)
     except EOFError:
         raise InputError(f"{display}: compressed input is truncated (unexpected end of data)") from None
-    except (OSError, lzma.LZMAError, ValueError) as exc:
+    except _CORRUPT_DATA as exc:
         name = type(exc).__name__
         raise InputError(f"{display}: cannot read input ({name}: {exc})") from None
 
@@ -160,12 +203,12 @@ def read_text_blocks(source: InputFile, file_index: int, block_bytes: int | None
     carry = b""
     first = True
     pending_cr = False
+    bom = False  # removed, and not yet reported with a block (small reads may carry it along)
     with handle:
         while True:
             chunk = _read(handle, block_bytes, source.display)
             at_end = not chunk
             data = carry + chunk
-            bom = False
             if first and (len(data) >= len(BOM) or at_end):
                 first = False
                 if data.startswith(BOM):
@@ -173,14 +216,15 @@ def read_text_blocks(source: InputFile, file_index: int, block_bytes: int | None
             if pending_cr and data.startswith(b"\n"):
                 data = data[1:]  # the LF of a CRLF split across two reads
             pending_cr = False
+            last_cr = 0  # the line break that ends the block was a CR or CRLF (counted too)
             if at_end:
                 complete, carry = data, b""
                 if not complete:
                     break
                 if complete.endswith(b"\r\n"):
-                    complete = complete[:-2]
+                    complete, last_cr = complete[:-2], 1
                 elif complete.endswith((b"\n", b"\r")):
-                    complete = complete[:-1]
+                    complete, last_cr = complete[:-1], int(complete.endswith(b"\r"))
             else:
                 cut = max(data.rfind(b"\n"), data.rfind(b"\r"))
                 if cut < 0 or first:
@@ -188,8 +232,9 @@ def read_text_blocks(source: InputFile, file_index: int, block_bytes: int | None
                     continue
                 complete, carry = data[:cut], data[cut + 1:]
                 if data[cut:cut + 1] == b"\n" and complete.endswith(b"\r"):
-                    complete = complete[:-1]
+                    complete, last_cr = complete[:-1], 1
                 pending_cr = data[cut:cut + 1] == b"\r"
+                last_cr = last_cr or int(pending_cr)
                 if pending_cr and carry.startswith(b"\n"):
                     carry, pending_cr = carry[1:], False
             cr = 0
@@ -197,7 +242,8 @@ def read_text_blocks(source: InputFile, file_index: int, block_bytes: int | None
                 cr = complete.count(b"\r")
                 complete = complete.replace(b"\r\n", b"\n").replace(b"\r", b"\n")
             count = complete.count(b"\n") + 1
-            yield Block(file_index, line, complete, count, bom, cr)
+            yield Block(file_index, line, complete, count, bom, cr + last_cr)
+            bom = False
             line += count
             if at_end:
                 break

@@ -173,6 +173,7 @@ def _build_locked(recipe: Recipe, out: Path, jobs: int, force: bool, progress: P
         meter = progress if isinstance(progress, BuildMeter) else BuildMeter(on_stage=progress)
         meter.stage_hooks.insert(0, lambda stage: checkpoint(f"stage:{stage}"))
         result = _build_into(recipe, out, work, jobs, meter, journal)
+        meter.begin("finish")   # stale files, build.json, directory syncs
         _remove_stale(out, stale, result.manifest)
         for directory in {(out / f["path"]).parent for f in result.manifest["files"]}:
             fsync_dir(directory)
@@ -183,6 +184,7 @@ def _build_locked(recipe: Recipe, out: Path, jobs: int, force: bool, progress: P
         journal.remove()
         (out / INCOMPLETE).unlink()
         fsync_dir(out)
+        meter.end()
         return dataclasses.replace(result, was_incomplete=was_incomplete)
     finally:
         shutil.rmtree(work, ignore_errors=True)
@@ -359,9 +361,10 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
                           build_vocabulary(cond, tags, surfaces, [scan.split_counts[0] for scan in scans]))
             advance(1)
 
-    journal.bind_vocabularies([vocab_tsv(v).encode("utf-8") for v in vocabs]
-                              + [model for sub in subwords.values() for model in sub.models])
     advance = meter.begin("shards", total=sum(s.sentences for s in scans), unit="sentences")
+    vocab_texts = [vocab_tsv(v) for v in vocabs]   # written with the vocab files below
+    journal.bind_vocabularies([text.encode("utf-8") for text in vocab_texts]
+                              + [model for sub in subwords.values() for model in sub.models])
     written: list[str] = []
     shard_paths: dict[str, dict[str, list[str]]] = {c.name: {} for c in recipe.conditions}
     stats = {c.name: {s: [0, 0, [0] * len(tags), [0] * len(tags)] for s in SPLITS} for c in recipe.conditions}
@@ -398,9 +401,9 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
         buckets.remove()
 
     advance = meter.begin("vocab files", total=len(recipe.conditions), unit="conditions")
-    for cond, vocab in zip(recipe.conditions, vocabs):
+    for cond, vocab, vocab_text in zip(recipe.conditions, vocabs, vocab_texts):
         path = f"{cond.name}/vocab.tsv"
-        atomic_write_text(out / path, vocab_tsv(vocab))
+        atomic_write_text(out / path, vocab_text)
         written.append(path)
         if cond.name in subwords:
             for li, (tag, model) in enumerate(zip(tags, subwords[cond.name].models)):

@@ -13,7 +13,7 @@ import re
 import tomllib
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 import langcodes
 
@@ -445,7 +445,7 @@ def _subword_spec(r: _Reader, index: int, values: dict[str, Any], units: str,
         return None
     for key in ("share", "separate", "max_size", "min_count"):
         if key in values:
-            raise r.fail("condition", index, key, f"applies to units = \"word\" only (subword sizes are set with size or size_per_language)")
+            raise r.fail("condition", index, key, "applies to units = \"word\" only (subword sizes are set with size or size_per_language)")
     spec = SubwordSpec(**{k: values[k] for k in given})
     joint = all(choice == "shared" for choice in classes.values())
     if bool(spec.size) == bool(spec.size_per_language):

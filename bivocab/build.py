@@ -40,7 +40,7 @@ from .sources import InputFile, read_blocks
 from .splits import split_thresholds
 from .subword import (SentenceText, SubwordCondition, build_subword_condition, model_path, tokenizer_path,
                       unigram_tokenizer_json)
-from .vocab import Vocabulary, build_vocabulary, tokenizer_json, tsv_text, vocab_tsv
+from .vocab import Vocabulary, build_vocabulary, index_types, tokenizer_json, tsv_text, vocab_tsv
 
 
 # Bytes of text per scan block.  Larger blocks repeat more of their chunks, so a worker looks
@@ -356,9 +356,11 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
                 advance(1)
     vocabs = []
     with meter.stage("vocabulary", total=len(recipe.conditions), unit="conditions") as advance:
+        type_index = index_types(surfaces)   # classes and code point ranks, shared by all conditions
         for cond in recipe.conditions:
             vocabs.append(subwords[cond.name].vocab if cond.name in subwords else
-                          build_vocabulary(cond, tags, surfaces, [scan.split_counts[0] for scan in scans]))
+                          build_vocabulary(cond, tags, surfaces, [scan.split_counts[0] for scan in scans],
+                                           type_index))
             advance(1)
 
     advance = meter.begin("shards", total=sum(s.sentences for s in scans), unit="sentences")

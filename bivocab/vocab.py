@@ -19,7 +19,7 @@ import numpy as np
 
 from .errors import BivocabError
 from .recipe import ConditionSpec, CleanSpec
-from .segment import SPECIAL, pre_tokenizer_json, token_class
+from .segment import NUMBER, PUNCT, SPECIAL, SYMBOL, WORD, pre_tokenizer_json, token_class
 
 SHARED = "*"
 
@@ -115,62 +115,100 @@ def entry_key(surface: str, tag: str, is_shared: Callable[[str], bool]) -> tuple
     return (SHARED, surface) if is_shared(surface) else (tag, surface)
 
 
+CLASS_NAMES = (WORD, NUMBER, PUNCT, SYMBOL)
+
+
+@dataclass(frozen=True)
+class TypeIndex:
+    """Per-language facts about the token types that every condition reuses: the class of each
+    type (an index into CLASS_NAMES) and its rank in the code point order of all surfaces of
+    all languages (equal surfaces share a rank)."""
+
+    classes: tuple[np.ndarray, ...]
+    ranks: tuple[np.ndarray, ...]
+    by_rank: tuple[str, ...]        # rank -> surface
+    class_by_rank: np.ndarray       # rank -> class index
+
+
+def index_types(surfaces: list[list[str]]) -> TypeIndex:
+    """Classify and rank each language's types once (the costly per-type Python work)."""
+    code = {name: i for i, name in enumerate(CLASS_NAMES)}
+    classes = tuple(np.fromiter((code[token_class(s)] for s in types), dtype=np.uint8, count=len(types))
+                    for types in surfaces)
+    by_rank = tuple(sorted(set().union(*surfaces)))
+    rank = {s: i for i, s in enumerate(by_rank)}
+    ranks = tuple(np.fromiter((rank[s] for s in types), dtype=np.int64, count=len(types)) for types in surfaces)
+    class_by_rank = np.zeros(len(by_rank), dtype=np.uint8)
+    for c, r in zip(classes, ranks):
+        class_by_rank[r] = c
+    return TypeIndex(classes, ranks, by_rank, class_by_rank)
+
+
+def _shared_mask(condition: ConditionSpec, types: list[str], classes: np.ndarray) -> np.ndarray:
+    """:func:`sharing_rule` for every type of one language at once."""
+    by_class = np.array([condition.classes[name] == "shared" for name in CLASS_NAMES])
+    mask = by_class[classes]
+    forced = [(i, s in condition.share) for i, s in enumerate(types)
+              if s in condition.share or s in condition.separate] if condition.share or condition.separate else []
+    for i, shared in forced:
+        mask[i] = shared
+    return mask
+
+
 def build_vocabulary(condition: ConditionSpec, tags: tuple[str, ...], surfaces: list[list[str]],
-                     train_counts: list[np.ndarray]) -> Vocabulary:
+                     train_counts: list[np.ndarray], index: TypeIndex | None = None) -> Vocabulary:
     """Choose the entries of one condition and build each language's lookup table.
 
     ``surfaces[l]`` are language l's token types (its type ids index them) and
-    ``train_counts[l]`` their counts in the train split.
+    ``train_counts[l]`` their counts in the train split; ``index`` (from :func:`index_types`
+    on the same surfaces) saves classifying the types again for each condition.
     """
-    is_shared = sharing_rule(condition)
+    if index is None:
+        index = index_types(surfaces)
     n_lang = len(tags)
-    counts: dict[tuple[str, str], list[int]] = {}
-    keys_per_lang: list[list[tuple[str, str]]] = []
-    for li, (types, type_counts) in enumerate(zip(surfaces, train_counts)):
-        keys = []
-        for surface, count in zip(types, type_counts.tolist()):
-            key = entry_key(surface, tags[li], is_shared)
-            keys.append(key)
-            if count:
-                slot = counts.get(key)
-                if slot is None:
-                    slot = counts[key] = [0] * n_lang
-                slot[li] += count
-        keys_per_lang.append(keys)
+    # An entry key is rank * (n_lang + 1) + k, k = 0 for a shared entry and l + 1 for language
+    # l's own, so sorting keys orders entries by surface code points, then language.
+    type_keys = []
+    for li, types in enumerate(surfaces):
+        shared = _shared_mask(condition, types, index.classes[li])
+        type_keys.append(index.ranks[li] * (n_lang + 1) + np.where(shared, 0, li + 1))
+    keys, inverse = np.unique(np.concatenate(type_keys), return_inverse=True)
+    counts = np.zeros((len(keys), n_lang), dtype=np.int64)
+    start = 0
+    for li, type_counts in enumerate(train_counts):
+        here = inverse[start:start + len(type_keys[li])]
+        np.add.at(counts[:, li], here, np.asarray(type_counts, dtype=np.int64))
+        start += len(type_keys[li])
+    totals = counts.sum(axis=1)
 
     spec = condition.vocab
-    lang_rank = {SHARED: -1, **{t: i for i, t in enumerate(tags)}}
-    candidates = [(key, c) for key, c in counts.items() if sum(c) >= spec.min_count]
+    chosen = np.flatnonzero((totals > 0) & (totals >= spec.min_count))
     # Tie rule (DESIGN.md section 6): count descending, then code points of the surface, then language.
-    candidates.sort(key=lambda kc: (-sum(kc[1]), kc[0][1], lang_rank[kc[0][0]]))
+    chosen = chosen[np.lexsort((keys[chosen], -totals[chosen]))]
     specials = special_tokens(tags, spec.unknown, spec.eos, spec.pad)
     if spec.max_size:
         if spec.max_size <= len(specials):
             raise BivocabError(
                 f"condition '{condition.name}': max_size {spec.max_size} leaves no room beyond the "
                 f"{len(specials)} special tokens")
-        candidates = candidates[: spec.max_size - len(specials)]
+        chosen = chosen[: spec.max_size - len(specials)]
 
-    entries: list[Entry] = []
-    by_token: dict[str, Entry] = {}
-
-    def add(token: str, surface: str, lang: str, cls: str, c: tuple[int, ...]) -> int:
-        entry = Entry(len(entries), token, surface, lang, cls, c)
-        other = by_token.get(token)
-        if other is not None:
-            raise BivocabError(
-                f"condition '{condition.name}': exported token {token!r} of entry ({lang}, {surface!r}) "
-                f"collides with entry ({other.lang}, {other.surface!r})")
-        by_token[token] = entry
-        entries.append(entry)
-        return entry.id
+    ranks = (keys[chosen] // (n_lang + 1)).tolist()
+    entry_langs = (keys[chosen] % (n_lang + 1)).tolist()
+    entry_surfaces = [index.by_rank[r] for r in ranks]
+    lang_names = [SHARED, *tags]
+    langs = [lang_names[k] for k in entry_langs]
+    tokens = [s if k == 0 else tagged_token(s, lang_names[k]) for s, k in zip(entry_surfaces, entry_langs)]
+    special_names = [name for name, _ in specials]
+    _check_unique(condition, special_names + tokens, [lang for _, lang in specials] + langs,
+                  special_names + entry_surfaces)
 
     zero = (0,) * n_lang
-    special_ids = {name: add(name, name, lang, SPECIAL, zero) for name, lang in specials}
-    ids: dict[tuple[str, str], int] = {}
-    for (lang, surface), c in candidates:
-        token = surface if lang == SHARED else tagged_token(surface, lang)
-        ids[(lang, surface)] = add(token, surface, lang, token_class(surface), tuple(c))
+    entries = [Entry(i, name, name, lang, SPECIAL, zero) for i, (name, lang) in enumerate(specials)]
+    special_ids = {name: i for i, name in enumerate(special_names)}
+    entries += map(Entry, range(len(specials), len(specials) + len(chosen)), tokens, entry_surfaces, langs,
+                   [CLASS_NAMES[c] for c in index.class_by_rank[keys[chosen] // (n_lang + 1)].tolist()],
+                   map(tuple, counts[chosen].tolist()))
 
     unk_ids = tuple(special_ids["<unk>"] if spec.unknown == "shared" else special_ids[f"<unk:{t}>"] for t in tags)
     if spec.eos == "none":
@@ -178,10 +216,29 @@ def build_vocabulary(condition: ConditionSpec, tags: tuple[str, ...], surfaces: 
     else:
         eos_ids = tuple(special_ids["<eos>"] if spec.eos == "shared" else special_ids[f"<eos:{t}>"] for t in tags)
     dtype = np.uint16 if len(entries) <= 1 << 16 else np.uint32
-    luts = tuple(np.fromiter((ids.get(k, unk_ids[li]) for k in keys), dtype=dtype, count=len(keys))
-                 for li, keys in enumerate(keys_per_lang))
+    id_of_key = np.full(len(keys), -1, dtype=np.int64)
+    id_of_key[chosen] = np.arange(len(specials), len(specials) + len(chosen))
+    luts = []
+    start = 0
+    for li in range(n_lang):
+        ids = id_of_key[inverse[start:start + len(type_keys[li])]]
+        start += len(type_keys[li])
+        luts.append(np.where(ids < 0, unk_ids[li], ids).astype(dtype))
     return Vocabulary(condition.name, tags, tuple(entries), unk_ids, eos_ids,
-                      special_ids.get("<pad>"), luts)
+                      special_ids.get("<pad>"), tuple(luts))
+
+
+def _check_unique(condition: ConditionSpec, tokens: list[str], langs: list[str], surfaces: list[str]) -> None:
+    """Every exported token names one entry; the first clash (in id order) is reported."""
+    if len(set(tokens)) == len(tokens):
+        return
+    seen: dict[str, int] = {}
+    for i, token in enumerate(tokens):
+        j = seen.setdefault(token, i)
+        if j != i:
+            raise BivocabError(
+                f"condition '{condition.name}': exported token {token!r} of entry ({langs[i]}, {surfaces[i]!r}) "
+                f"collides with entry ({langs[j]}, {surfaces[j]!r})")
 
 
 def vocab_tsv(vocab: Vocabulary) -> str:

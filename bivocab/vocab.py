@@ -12,6 +12,7 @@ from __future__ import annotations
 import csv
 import io
 import json
+import re
 from dataclasses import dataclass
 from typing import Callable
 
@@ -148,10 +149,13 @@ def _shared_mask(condition: ConditionSpec, types: list[str], classes: np.ndarray
     """:func:`sharing_rule` for every type of one language at once."""
     by_class = np.array([condition.classes[name] == "shared" for name in CLASS_NAMES])
     mask = by_class[classes]
-    forced = [(i, s in condition.share) for i, s in enumerate(types)
-              if s in condition.share or s in condition.separate] if condition.share or condition.separate else []
-    for i, shared in forced:
-        mask[i] = shared
+    if condition.share or condition.separate:
+        share, separate = set(condition.share), set(condition.separate)
+        for i, s in enumerate(types):
+            if s in share:
+                mask[i] = True
+            elif s in separate:
+                mask[i] = False
     return mask
 
 
@@ -244,9 +248,12 @@ def _check_unique(condition: ConditionSpec, tokens: list[str], langs: list[str],
 def vocab_tsv(vocab: Vocabulary) -> str:
     """The vocab.tsv contract: ``id token surface lang class count count_<tag>...``."""
     header = ["id", "token", "surface", "lang", "class", "count"] + [f"count_{t}" for t in vocab.tags]
-    rows = [[str(e.id), e.token, e.surface, e.lang, e.cls, str(e.count), *map(str, e.counts)]
-            for e in vocab.entries]
-    return tsv_text(header, rows)
+    entries = vocab.entries
+    counts = [[str(c) for c in column] for column in zip(*(e.counts for e in entries))] or [[]] * len(vocab.tags)
+    columns = [[str(e.id) for e in entries], quote_column([e.token for e in entries]),
+               quote_column([e.surface for e in entries]), quote_column([e.lang for e in entries]),
+               [e.cls for e in entries], [str(sum(e.counts)) for e in entries], *counts]
+    return tsv_columns(header, columns)
 
 
 def tsv_text(header: list[str], rows: list[list[str]]) -> str:
@@ -257,6 +264,27 @@ def tsv_text(header: list[str], rows: list[list[str]]) -> str:
     writer.writerow(header)
     writer.writerows(rows)
     return buffer.getvalue()
+
+
+# Characters that can make the csv module quote a field (delimiter, quote, line ends).
+_QUOTABLE = re.compile(r'[\t"\r\n]')
+
+
+def quote_column(values: list[str]) -> list[str]:
+    """Each string as :func:`tsv_text` writes it within a row of several fields; the rare
+    strings that may need quoting are passed through the csv module itself.
+
+    >>> quote_column(['Kai', 'a\\tb'])
+    ['Kai', '"a\\tb"']
+    """
+    return [tsv_text([v, ""], [])[:-2] if _QUOTABLE.search(v) else v for v in values]
+
+
+def tsv_columns(header: list[str], columns: list[list[str]]) -> str:
+    """:func:`tsv_text` of the rows formed by ``columns`` (at least two), whose string fields
+    went through :func:`quote_column` (fields of digits and class names never need it)."""
+    lines = [tsv_text(header, [])[:-1], *map("\t".join, zip(*columns))]
+    return "\n".join(lines) + "\n"
 
 
 def tokenizer_json(vocab: Vocabulary, lang_index: int, clean: CleanSpec) -> str:

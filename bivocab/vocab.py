@@ -287,15 +287,12 @@ def tsv_columns(header: list[str], columns: list[list[str]]) -> str:
     return "\n".join(lines) + "\n"
 
 
-def tokenizer_json(vocab: Vocabulary, lang_index: int, clean: CleanSpec) -> str:
-    """A ``tokenizers`` WordLevel tokenizer for one language that reproduces the shard ids.
+def tokenizer_doc(vocab: Vocabulary, lang_index: int, clean: CleanSpec) -> dict:
+    """The ``tokenizers`` WordLevel tokenizer for one language that reproduces the shard ids, as JSON data.
 
     Its normalizer repeats our cleaning (whitespace, normal form, case), its pre-tokenizer is our
     segmentation regex, and its post-processor appends the end-of-sentence token.
     """
-    from tokenizers import Tokenizer
-
-    tag = vocab.tags[lang_index]
     mapping = {e.surface if e.cls != SPECIAL else e.token: e.id for e in vocab.visible(lang_index)}
     normalizers: list[dict] = [
         {"type": "Replace", "pattern": {"Regex": r"[\s\x00-\x08\x0e-\x1f\x7f-\x9f]+"}, "content": " "},
@@ -326,6 +323,32 @@ def tokenizer_json(vocab: Vocabulary, lang_index: int, clean: CleanSpec) -> str:
         "model": {"type": "WordLevel", "vocab": dict(sorted(mapping.items(), key=lambda kv: kv[1])),
                   "unk_token": vocab.entries[vocab.unk_ids[lang_index]].token},
     }
-    # Round-trip through the library so the file is exactly what tokenizers itself writes.
-    text = json.dumps(doc, ensure_ascii=False)
-    return Tokenizer.from_str(text).to_str(pretty=True) + "\n"
+    return doc
+
+
+# Stands in for the vocabulary while the library writes the rest of the file.
+_VOCAB_PLACEHOLDER = "\x00bivocab-vocab\x00"
+
+
+def tokenizer_json(vocab: Vocabulary, lang_index: int, clean: CleanSpec) -> str:
+    """The file text of :func:`tokenizer_doc`, exactly as ``tokenizers`` itself writes it.
+
+    The library writes everything but the vocabulary (its pretty printer puts a WordLevel
+    vocabulary one ``"token": id`` line each, in id order, with the JSON string escapes that
+    ``json.dumps`` also uses); parsing and re-writing tens of thousands of entries through it
+    would cost more than the rest of the vocabulary stage.
+    """
+    from tokenizers import Tokenizer
+
+    doc = tokenizer_doc(vocab, lang_index, clean)
+    mapping = doc["model"]["vocab"]
+    doc["model"]["vocab"] = {_VOCAB_PLACEHOLDER: 0}
+    skeleton = Tokenizer.from_str(json.dumps(doc, ensure_ascii=False)).to_str(pretty=True) + "\n"
+    placeholder = json.dumps(_VOCAB_PLACEHOLDER) + ": 0"
+    head, sep, tail = skeleton.partition(placeholder)
+    if not sep or placeholder in tail:
+        raise RuntimeError("tokenizers wrote the WordLevel vocabulary in an unexpected layout")
+    indent = head[head.rfind("\n") + 1:]
+    dumps = json.dumps
+    lines = [f"{dumps(token, ensure_ascii=False)}: {i}" for token, i in mapping.items()]
+    return head + (",\n" + indent).join(lines) + tail

@@ -2,15 +2,18 @@
 
 from __future__ import annotations
 
+import json
 import random
 import unicodedata
 
 import numpy as np
 import pytest
+from tokenizers import Tokenizer
 
-from bivocab.recipe import POLICIES, ConditionSpec, VocabSpec
+from bivocab.recipe import POLICIES, CleanSpec, ConditionSpec, VocabSpec
 from bivocab.segment import token_class
-from bivocab.vocab import SHARED, build_vocabulary, quote_column, tsv_columns, tsv_text
+from bivocab.vocab import (SHARED, build_vocabulary, quote_column, tokenizer_doc, tokenizer_json, tsv_columns,
+                           tsv_text)
 
 TRICKY = ["plain", "", " ", '"', 'say "hi"', "a\tb", "a\rb", "a\nb", "\r", "é", "𝔘", "x,y", "'", "\\"]
 
@@ -72,3 +75,18 @@ def test_array_vocabulary_matches_the_entry_by_entry_rule(policy, seed):
     for li, tag in enumerate(("en", "de")):
         want = [ids.get((SHARED, s), ids.get((tag, s), vocab.unk_ids[li])) for s in surfaces[li]]
         assert vocab.luts[li].tolist() == want
+
+
+@pytest.mark.parametrize("eos", ["shared", "per-language", "none"])
+def test_tokenizer_file_is_what_the_tokenizers_library_writes_for_the_whole_document(eos):
+    # Reference: the tokenizers library (PyPI) parsing and pretty-printing the full document.
+    tricky = ["Kai", '"', "\\", "a\u0001b", "\u2028", "é", "𝔘", "/", "\x7f", "<eos>x", "ü@de"]
+    surfaces = [tricky, ["Kai", "Boot", "\u00ad"]]
+    counts = [np.arange(1, len(tricky) + 1, dtype=np.int64), np.array([3, 2, 1], dtype=np.int64)]
+    cond = ConditionSpec(name="c", policy="word-tagged", classes=dict(POLICIES["word-tagged"]),
+                         vocab=VocabSpec(eos=eos, unknown="per-language"))
+    vocab = build_vocabulary(cond, ("en", "de"), surfaces, counts)
+    for li in range(2):
+        for clean in (CleanSpec(), CleanSpec(lowercase=True, normal_form="none")):
+            doc = json.dumps(tokenizer_doc(vocab, li, clean), ensure_ascii=False)
+            assert tokenizer_json(vocab, li, clean) == Tokenizer.from_str(doc).to_str(pretty=True) + "\n"

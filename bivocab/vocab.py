@@ -349,6 +349,7 @@ def tokenizer_json(vocab: Vocabulary, lang_index: int, clean: CleanSpec) -> str:
     if not sep or placeholder in tail:
         raise RuntimeError("tokenizers wrote the WordLevel vocabulary in an unexpected layout")
     indent = head[head.rfind("\n") + 1:]
-    dumps = json.dumps
-    lines = [f"{dumps(token, ensure_ascii=False)}: {i}" for token, i in mapping.items()]
-    return head + (",\n" + indent).join(lines) + tail
+    # One encoder call for all lines: the item separator carries the line break and indent
+    # (a JSON string never holds a raw line break, so nothing else can look like one).
+    lines = json.dumps(mapping, ensure_ascii=False, separators=(",\n" + indent, ": "))[1:-1]
+    return head + lines + tail

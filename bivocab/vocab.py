@@ -277,7 +277,16 @@ def quote_column(values: list[str]) -> list[str]:
     >>> quote_column(['Kai', 'a\\tb'])
     ['Kai', '"a\\tb"']
     """
-    return [tsv_text([v, ""], [])[:-2] if _QUOTABLE.search(v) else v for v in values]
+    out = list(values)
+    joined = "".join(out)
+    if not _QUOTABLE.search(joined):
+        return out
+    # Find the few values holding such a character from match positions in the joined text.
+    ends = np.cumsum(np.fromiter(map(len, out), dtype=np.int64, count=len(out)))
+    positions = np.array([m.start() for m in _QUOTABLE.finditer(joined)], dtype=np.int64)
+    for i in np.unique(np.searchsorted(ends, positions, side="right")).tolist():
+        out[i] = tsv_text([out[i], ""], [])[:-2]
+    return out
 
 
 def tsv_columns(header: list[str], columns: list[list[str]]) -> str:

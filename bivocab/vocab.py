@@ -249,7 +249,7 @@ def vocab_tsv(vocab: Vocabulary) -> str:
     """The vocab.tsv contract: ``id token surface lang class count count_<tag>...``."""
     header = ["id", "token", "surface", "lang", "class", "count"] + [f"count_{t}" for t in vocab.tags]
     entries = vocab.entries
-    counts = [[str(c) for c in column] for column in zip(*(e.counts for e in entries))] or [[]] * len(vocab.tags)
+    counts = [[str(c) for c in column] for column in zip(*(e.counts for e in entries))]
     columns = [[str(e.id) for e in entries], quote_column([e.token for e in entries]),
                quote_column([e.surface for e in entries]), quote_column([e.lang for e in entries]),
                [e.cls for e in entries], [str(sum(e.counts)) for e in entries], *counts]

@@ -33,14 +33,14 @@ from .gather import ShardBuckets
 from .progress import BuildMeter
 from .scan import (ScanResult, ScanTask, TypeTable, WorkerTypeMaps, ordered_map, ragged_gather, release_tables,
                    scan_block)
-from .segment import token_class
 from .resume import ShardJournal, build_fingerprint
 from .shards import PROVENANCE_DTYPE, ShardWriter, shard_stem, write_npy
 from .sources import InputFile, read_blocks
 from .splits import split_thresholds
 from .subword import (SentenceText, SubwordCondition, build_subword_condition, model_path, tokenizer_path,
                       unigram_tokenizer_json)
-from .vocab import Vocabulary, build_vocabulary, tokenizer_json, tsv_text, vocab_tsv
+from .vocab import (CLASS_NAMES, TypeIndex, Vocabulary, build_vocabulary, index_types, quote_column, tokenizer_json,
+                    tsv_columns, vocab_tsv)
 
 
 # Bytes of text per scan block.  Larger blocks repeat more of their chunks, so a worker looks
@@ -356,9 +356,11 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
                 advance(1)
     vocabs = []
     with meter.stage("vocabulary", total=len(recipe.conditions), unit="conditions") as advance:
+        type_index = index_types(surfaces)   # classes and code point ranks, shared by all conditions
         for cond in recipe.conditions:
             vocabs.append(subwords[cond.name].vocab if cond.name in subwords else
-                          build_vocabulary(cond, tags, surfaces, [scan.split_counts[0] for scan in scans]))
+                          build_vocabulary(cond, tags, surfaces, [scan.split_counts[0] for scan in scans],
+                                           type_index))
             advance(1)
 
     advance = meter.begin("shards", total=sum(s.sentences for s in scans), unit="sentences")
@@ -424,7 +426,7 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
         advance(1)
     for scan in scans:
         path = f"types/{scan.tag}.tsv"
-        atomic_write_text(out / path, types_tsv(scan))
+        atomic_write_text(out / path, types_tsv(scan, type_index, scans.index(scan)))
         written.append(path)
 
     summaries = tuple(
@@ -533,15 +535,16 @@ def _write_condition_shard(writer: ShardWriter, condition: str, stem: str, vocab
     return writer.write(f"{condition}/{stem}", tokens, offsets, langs.astype(np.uint8), provenance)
 
 
-def types_tsv(scan: LanguageScan) -> str:
+def types_tsv(scan: LanguageScan, index: TypeIndex, lang_index: int) -> str:
     """All token types of one language with their class and count per split, sorted by the
-    tie rule (train count descending, then code points)."""
+    tie rule (train count descending, then code points; ``index`` ranks the surfaces)."""
     counts = scan.split_counts
-    order = sorted(range(len(scan.table)), key=lambda i: (-int(counts[0, i]), scan.table.surfaces[i]))
+    order = np.lexsort((index.ranks[lang_index], -counts[0]))
     surfaces = scan.table.surfaces
-    rows = [[surfaces[i], token_class(surfaces[i]), str(counts[0, i]), str(counts[1, i]), str(counts[2, i])]
-            for i in order]
-    return tsv_text(["surface", "class", "count_train", "count_valid", "count_test"], rows)
+    columns = [quote_column([surfaces[i] for i in order.tolist()]),
+               [CLASS_NAMES[c] for c in index.classes[lang_index][order].tolist()],
+               *([str(c) for c in counts[split, order].tolist()] for split in range(3))]
+    return tsv_columns(["surface", "class", "count_train", "count_valid", "count_test"], columns)
 
 
 def _input_report(counters: Counter) -> Counter:

@@ -4,10 +4,12 @@ markers that tell a complete build from an interrupted one."""
 from __future__ import annotations
 
 import contextlib
+import dataclasses
 import errno
 import fcntl
 import fnmatch
 import hashlib
+import io
 import json
 import os
 import platform
@@ -84,20 +86,78 @@ def temp_name(path: Path) -> Path:
     return path.with_name(f".{path.name}.tmp-{os.getpid()}")
 
 
+class _HashingWriter:
+    """A binary output file that hashes the bytes written through it, so the sha256 of a file
+    this process wrote needs no second read.  Seeking is refused: a writer that rewrote earlier
+    bytes would make the running digest wrong."""
+
+    def __init__(self, raw: IO[bytes]):
+        self.raw = raw
+        self.digest = hashlib.sha256()
+        self.size = 0
+
+    def write(self, data: Any) -> int:
+        view = memoryview(data).cast("B")
+        self.digest.update(view)
+        self.size += view.nbytes
+        return self.raw.write(view)
+
+    def seekable(self) -> bool:
+        return False
+
+    def seek(self, *args: Any) -> int:
+        raise io.UnsupportedOperation("seek")
+
+    def __getattr__(self, name: str) -> Any:  # tell, flush, closed, fileno...: the real file's
+        return getattr(self.raw, name)
+
+
+@dataclass(frozen=True)
+class _WrittenFile:
+    """Digests of a file this process wrote, valid while the file keeps the stat it had then."""
+
+    sha256: str
+    bytes: int
+    stat: tuple[int, int, int, int]
+    content_sha256: str | None = None
+
+
+# Absolute path -> digests of files written by atomic_open in this process (taken by file_record).
+_WRITTEN: dict[str, _WrittenFile] = {}
+
+
+def _stat_key(path: Path) -> tuple[int, int, int, int]:
+    st = path.stat()
+    return st.st_dev, st.st_ino, st.st_size, st.st_mtime_ns
+
+
+def note_content(path: Path, content: str) -> None:
+    """Attach the content digest of a shard file just written by :func:`atomic_open` (computed
+    from the data that was written), so :func:`file_record` need not read the file back."""
+    key = os.path.abspath(path)
+    if key in _WRITTEN:
+        _WRITTEN[key] = dataclasses.replace(_WRITTEN[key], content_sha256=content)
+
+
 @contextlib.contextmanager
 def atomic_open(path: Path, mode: str = "wb") -> Iterator[IO[Any]]:
     """Write to a temporary name in the same directory, fsync, then rename into place.
     On any error the temporary file is removed and ``path`` is left untouched; an OSError
-    becomes an :class:`OutputError` naming ``path``."""
+    becomes an :class:`OutputError` naming ``path``.  The sha256 of the bytes written is kept
+    for :func:`file_record`."""
     tmp = temp_name(path)
+    key = os.path.abspath(path)
+    _WRITTEN.pop(key, None)
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
         with open(tmp, mode) as handle:
-            yield handle
+            hashing = _HashingWriter(handle)
+            yield hashing
             handle.flush()
             checkpoint(f"write:{path}")
             os.fsync(handle.fileno())
         os.replace(tmp, path)
+        _WRITTEN[key] = _WrittenFile(hashing.digest.hexdigest(), hashing.size, _stat_key(path))
     except BaseException as exc:
         with contextlib.suppress(FileNotFoundError):
             tmp.unlink()
@@ -194,20 +254,30 @@ def content_sha256(path: Path) -> str | None:
     if path.suffix == ".parquet":
         import pyarrow.parquet as pq
 
-        table = pq.read_table(path)
-        digest = hashlib.sha256()
-        for name in sorted(table.column_names):
-            digest.update(f"column {name}\n".encode("utf-8"))
-            _column_digest(digest, table.column(name))
-        return digest.hexdigest()
+        return table_digest(pq.read_table(path))
     return None
 
 
+def table_digest(table: Any) -> str:
+    """The content digest of a Parquet shard from its (pyarrow) table: each column by name."""
+    digest = hashlib.sha256()
+    for name in sorted(table.column_names):
+        digest.update(f"column {name}\n".encode("utf-8"))
+        _column_digest(digest, table.column(name))
+    return digest.hexdigest()
+
+
 def file_record(out: Path, path: str) -> dict[str, Any]:
-    """The build.json ``files`` entry of one output file."""
+    """The build.json ``files`` entry of one output file: from the digests taken while this
+    process wrote it when the file is unchanged since, else by reading it."""
     full = out / path
-    record: dict[str, Any] = {"path": path, "sha256": sha256_file(full), "bytes": full.stat().st_size}
-    content = content_sha256(full)
+    written = _WRITTEN.pop(os.path.abspath(full), None)
+    if written is not None and written.stat == _stat_key(full):
+        record: dict[str, Any] = {"path": path, "sha256": written.sha256, "bytes": written.bytes}
+        content = written.content_sha256 or content_sha256(full)
+    else:
+        record = {"path": path, "sha256": sha256_file(full), "bytes": full.stat().st_size}
+        content = content_sha256(full)
     if content is not None:
         record["content_sha256"] = content
     return record

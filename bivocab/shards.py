@@ -21,7 +21,7 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from .errors import BivocabError
-from .manifest import atomic_open, complete_manifest
+from .manifest import array_digest, atomic_open, complete_manifest, note_content, table_digest
 from .recipe import ShardSpec
 from .scan import ragged_gather
 
@@ -43,6 +43,7 @@ def shard_stem(split: str, index: int) -> str:
 def write_npy(path: Path, array: np.ndarray) -> None:
     with atomic_open(path) as handle:
         np.save(handle, np.ascontiguousarray(array), allow_pickle=False)
+    note_content(path, array_digest(array))
 
 
 def parquet_table(tokens: np.ndarray, offsets: np.ndarray, langs: np.ndarray, provenance: np.ndarray,
@@ -96,6 +97,7 @@ class ShardWriter:
             table = parquet_table(tokens, offsets, langs, provenance, self.tags, self.input_paths)
             with atomic_open(self.out / path) as handle:
                 pq.write_table(table, handle, row_group_size=PARQUET_ROW_GROUP, **PARQUET_OPTIONS)
+            note_content(self.out / path, table_digest(table))
             paths.append(path)
         return paths
 

@@ -17,10 +17,11 @@ import re
 import sys
 import time
 import unicodedata
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
 from importlib import metadata
 from pathlib import Path
-from typing import IO, Any, Iterable, Iterator
+from typing import IO, Any, Callable, Iterable, Iterator
 
 import numpy as np
 
@@ -119,11 +120,14 @@ class _WrittenFile:
     sha256: str
     bytes: int
     stat: tuple[int, int, int, int]
-    content_sha256: str | None = None
+    content_sha256: Future[str] | None = None
 
 
 # Absolute path -> digests of files written by atomic_open in this process (taken by file_record).
 _WRITTEN: dict[str, _WrittenFile] = {}
+# Content digests run beside the writing (hashlib and numpy release the GIL on large buffers),
+# so the shard stage's single thread does not wait for them; one thread keeps memory bounded.
+_DIGESTS = ThreadPoolExecutor(max_workers=1, thread_name_prefix="bivocab-digest")
 
 
 def _stat_key(path: Path) -> tuple[int, int, int, int]:
@@ -131,12 +135,13 @@ def _stat_key(path: Path) -> tuple[int, int, int, int]:
     return st.st_dev, st.st_ino, st.st_size, st.st_mtime_ns
 
 
-def note_content(path: Path, content: str) -> None:
-    """Attach the content digest of a shard file just written by :func:`atomic_open` (computed
-    from the data that was written), so :func:`file_record` need not read the file back."""
+def note_content(path: Path, content: Callable[[], str]) -> None:
+    """Attach the content digest of a shard file just written by :func:`atomic_open`, computed
+    (in a background thread) from the data that was written, so :func:`file_record` need not
+    read the file back.  The data must not change until file_record has taken the digest."""
     key = os.path.abspath(path)
     if key in _WRITTEN:
-        _WRITTEN[key] = dataclasses.replace(_WRITTEN[key], content_sha256=content)
+        _WRITTEN[key] = dataclasses.replace(_WRITTEN[key], content_sha256=_DIGESTS.submit(content))
 
 
 @contextlib.contextmanager
@@ -274,7 +279,7 @@ def file_record(out: Path, path: str) -> dict[str, Any]:
     written = _WRITTEN.pop(os.path.abspath(full), None)
     if written is not None and written.stat == _stat_key(full):
         record: dict[str, Any] = {"path": path, "sha256": written.sha256, "bytes": written.bytes}
-        content = written.content_sha256 or content_sha256(full)
+        content = written.content_sha256.result() if written.content_sha256 else content_sha256(full)
     else:
         record = {"path": path, "sha256": sha256_file(full), "bytes": full.stat().st_size}
         content = content_sha256(full)

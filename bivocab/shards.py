@@ -43,7 +43,7 @@ def shard_stem(split: str, index: int) -> str:
 def write_npy(path: Path, array: np.ndarray) -> None:
     with atomic_open(path) as handle:
         np.save(handle, np.ascontiguousarray(array), allow_pickle=False)
-    note_content(path, array_digest(array))
+    note_content(path, lambda: array_digest(array))
 
 
 def parquet_table(tokens: np.ndarray, offsets: np.ndarray, langs: np.ndarray, provenance: np.ndarray,
@@ -97,7 +97,7 @@ class ShardWriter:
             table = parquet_table(tokens, offsets, langs, provenance, self.tags, self.input_paths)
             with atomic_open(self.out / path) as handle:
                 pq.write_table(table, handle, row_group_size=PARQUET_ROW_GROUP, **PARQUET_OPTIONS)
-            note_content(self.out / path, table_digest(table))
+            note_content(self.out / path, lambda: table_digest(table))
             paths.append(path)
         return paths
 

@@ -58,6 +58,15 @@ def _render(draw: Callable[[Any], None], size: tuple[float, float] = (7.5, 4.2))
     return buffer.getvalue()
 
 
+def _label_log_axes(ax: Any, xlabel: str, ylabel: str, title: str) -> None:
+    """Labels, title, major grid and legend of a log-log curve plot."""
+    ax.set_xlabel(xlabel)
+    ax.set_ylabel(ylabel)
+    ax.set_title(title)
+    ax.grid(True, which="major", alpha=0.3)
+    ax.legend(frameon=False)
+
+
 def _rank_frequency(result: AuditResult) -> Figure:
     s = result.summary["languages"]
 
@@ -75,11 +84,7 @@ def _rank_frequency(result: AuditResult) -> Figure:
                 r = np.geomspace(1, z["max_rank"], 50)
                 ax.loglog(r, z["C"] * r ** -z["s"], color=colour, ls="--", lw=1.2,
                           label=f"{tag} Zipf fit, s = {z['s']:.2f}")
-        ax.set_xlabel("rank (log scale)")
-        ax.set_ylabel("training count (log scale)")
-        ax.set_title("Rank-frequency curves")
-        ax.grid(True, which="major", alpha=0.3)
-        ax.legend(frameon=False)
+        _label_log_axes(ax, "rank (log scale)", "training count (log scale)", "Rank-frequency curves")
 
     parts = []
     for tag in result.tags:
@@ -107,11 +112,8 @@ def _growth(result: AuditResult) -> Figure:
                 n = np.geomspace(h["fit_from_tokens"], s[tag]["tokens"], 50)
                 ax.loglog(n, h["K"] * n ** h["beta"], color=colour, lw=1.4,
                           label=f"{tag} Heaps fit, K = {h['K']:.1f}, β = {h['beta']:.3f}")
-        ax.set_xlabel("tokens read, N (log scale)")
-        ax.set_ylabel("distinct types, V (log scale)")
-        ax.set_title("Type-token growth with fitted Heaps' law V = K·N^β")
-        ax.grid(True, which="major", alpha=0.3)
-        ax.legend(frameon=False)
+        _label_log_axes(ax, "tokens read, N (log scale)", "distinct types, V (log scale)",
+                        "Type-token growth with fitted Heaps' law V = K·N^β")
 
     parts = []
     for tag in result.tags:

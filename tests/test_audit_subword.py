@@ -15,39 +15,10 @@ from bivocab.corpus import iter_sentences
 from bivocab.recipe import SPLITS, recipe_from_manifest
 from bivocab.subword import subword_statistics
 from test_audit_report import PLOTS, PageParts
-from test_subword import write_subword_corpus
+from test_subword import JOINT, JOINT_NO_BYTES, SEPARATE, condition_table, subword_recipe, write_subword_corpus
 
 TAGS = ("en", "de")
-RECIPE = """
-[build]
-name = "audit-subword"
-seed = 5
-[languages.en]
-inputs = ["corpus/en/*.txt"]
-[languages.de]
-inputs = ["corpus/de/*.txt"]
-[[condition]]
-name = "words"
-policy = "word-tagged"
-[[condition]]
-name = "joint"
-policy = "shared"
-units = "unigram"
-size = 400
-[[condition]]
-name = "separate"
-policy = "fully-tagged"
-units = "unigram"
-size_per_language = 330
-unknown = "per-language"
-eos = "per-language"
-[[condition]]
-name = "joint-no-bytes"
-policy = "shared"
-units = "unigram"
-size = 150
-byte_fallback = false
-"""
+RECIPE = subword_recipe("audit-subword", 5, condition_table("words", "word-tagged"), JOINT, SEPARATE, JOINT_NO_BYTES)
 SUBWORD = ("joint", "separate", "joint-no-bytes")
 
 

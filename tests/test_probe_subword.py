@@ -17,46 +17,14 @@ from bivocab.recipe import recipe_from_manifest
 from bivocab.segment import segment
 from conftest import copy_tree
 from test_probe import read_jsonl, run_cli, write_items
-from test_subword import sentences_by_position, shard_sentences, write_subword_corpus
+from test_subword import JOINT, SEPARATE, condition_table, subword_recipe, sentences_by_position, shard_sentences, write_subword_corpus
 
 # A word-level condition beside a joint unigram model, one unigram model per language, a joint
 # BPE model and a joint unigram model without byte fallback: small sizes, so the build takes a few seconds.
-RECIPE = """
-[build]
-name = "probe-subword"
-seed = 5
-[languages.en]
-inputs = ["corpus/en/*.txt"]
-[languages.de]
-inputs = ["corpus/de/*.txt"]
-[[condition]]
-name = "words"
-policy = "shared"
-[[condition]]
-name = "joint"
-policy = "shared"
-units = "unigram"
-size = 400
-[[condition]]
-name = "separate"
-policy = "fully-tagged"
-units = "unigram"
-size_per_language = 330
-unknown = "per-language"
-eos = "per-language"
-[[condition]]
-name = "joint-bpe"
-policy = "shared"
-units = "bpe"
-size = 400
-[[condition]]
-name = "joint-no-bytes"
-policy = "shared"
-units = "unigram"
-size = 150
-byte_fallback = false
-eos = "none"
-"""
+RECIPE = subword_recipe("probe-subword", 5, condition_table("words", "shared"), JOINT, SEPARATE,
+                        condition_table("joint-bpe", "shared", units="bpe", size=400),
+                        condition_table("joint-no-bytes", "shared", units="unigram", size=150, byte_fallback=False,
+                                  eos="none"))
 SUBWORD = ("joint", "separate", "joint-bpe", "joint-no-bytes")
 
 # Invented Kellhaven items; 漢 occurs nowhere in the corpus, so it has no piece.

@@ -38,48 +38,32 @@ _DE = ("der Hafen von Kellhaven öffnet bei Tagesanbruch und Fischerboote fahren
        "( frisch ) ! Kai Flut Fähre Kapitän Markt Seil Salz").split()
 _SYLLABLES = "ka lo ven mar tis un ber gho sel fa ri dom".split()
 
-RECIPE = """
-[build]
-name = "subword-test"
-seed = 11
-[languages.en]
-inputs = ["corpus/en/*.txt"]
-[languages.de]
-inputs = ["corpus/de/*.txt"]
-[[condition]]
-name = "words"
-policy = "shared"
-[[condition]]
-name = "joint"
-policy = "shared"
-units = "unigram"
-size = 400
-[[condition]]
-name = "joint-smoothed"
-policy = "shared"
-units = "bpe"
-size = 400
-sample_sentences = 400
-sample_alpha = 0.5
-[[condition]]
-name = "separate"
-policy = "fully-tagged"
-units = "unigram"
-size_per_language = 330
-unknown = "per-language"
-eos = "per-language"
-[[condition]]
-name = "tagged-words"
-policy = "word-tagged"
-units = "bpe"
-size = 800
-[[condition]]
-name = "joint-no-bytes"
-policy = "shared"
-units = "unigram"
-size = 150
-byte_fallback = false
-"""
+def subword_recipe(name: str, seed: int, *conditions: str) -> str:
+    """A recipe over ``corpus/<tag>/*.txt`` (see write_subword_corpus) with the given conditions."""
+    return (f'\n[build]\nname = "{name}"\nseed = {seed}\n[languages.en]\ninputs = ["corpus/en/*.txt"]\n'
+            f'[languages.de]\ninputs = ["corpus/de/*.txt"]\n' + "".join(conditions))
+
+
+def condition_table(name: str, policy: str, **keys: object) -> str:
+    """One [[condition]] table; string values are quoted, numbers and booleans written as TOML."""
+    lines = [f'name = "{name}"', f'policy = "{policy}"']
+    for key, value in keys.items():
+        text = f'"{value}"' if isinstance(value, str) else str(value).lower() if isinstance(value, bool) else str(value)
+        lines.append(f"{key} = {text}")
+    return "[[condition]]\n" + "\n".join(lines) + "\n"
+
+
+# The subword conditions the test modules share: small sizes, so a build takes a few seconds.
+JOINT = condition_table("joint", "shared", units="unigram", size=400)
+SEPARATE = condition_table("separate", "fully-tagged", units="unigram", size_per_language=330,
+                     unknown="per-language", eos="per-language")
+JOINT_NO_BYTES = condition_table("joint-no-bytes", "shared", units="unigram", size=150, byte_fallback=False)
+
+
+RECIPE = subword_recipe("subword-test", 11, condition_table("words", "shared"), JOINT,
+                        condition_table("joint-smoothed", "shared", units="bpe", size=400, sample_sentences=400,
+                                  sample_alpha=0.5),
+                        SEPARATE, condition_table("tagged-words", "word-tagged", units="bpe", size=800), JOINT_NO_BYTES)
 
 
 def write_subword_corpus(root: Path, sentences: int = 1500, seed: int = 3, skew: float = 1.0) -> None:

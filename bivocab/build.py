@@ -15,6 +15,7 @@ import shutil
 import time
 import uuid
 from collections import Counter
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Iterator
@@ -374,33 +375,47 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
     shard_writer = ShardWriter(out, recipe.shards, tags, [f.display for f in files])
     starts = [np.concatenate(([0], np.cumsum(a["lengths"])[:-1])).astype(np.int64) if len(a["lengths"])
               else np.zeros(0, np.int64) for a in arrays]
-    for si, split in enumerate(SPLITS):
-        rows = [np.flatnonzero(np.asarray(a["splits"]) == si) for a in arrays]
-        order = mix_split(si, rows, recipe.mix, recipe.seed, [a["lengths"] for a in arrays])
-        if order.sampling is not None:
-            mixing[split] = order.sampling
-        for cond in recipe.conditions:
-            shard_paths[cond.name][split] = []
-        shard_list = list(_shard_members(order, arrays, recipe.shards.max_tokens))
-        buckets = ShardBuckets(work, split, order.langs, order.rows,
-                               np.repeat(np.arange(len(shard_list)), [len(m) for m in shard_list]),
-                               [w.paths["tokens"] for w in writers], [a["lengths"] for a in arrays], starts)
-        for shard_index, members in enumerate(shard_list):
-            stem = shard_stem(split, shard_index)
-            paths = [f"provenance/{stem}.npy"] + [p for c in recipe.conditions
-                                                  for p in shard_writer.paths(f"{c.name}/{stem}")]
+    # Shards are written by ``jobs`` threads (the gathers, look-ups, writes and hashes are numpy,
+    # hashlib and file calls that release the GIL); results are taken in shard order, so the
+    # journal, the statistics and the output do not depend on the number of threads.
+    with ThreadPoolExecutor(max_workers=jobs, thread_name_prefix="bivocab-shard") as pool:
+        for si, split in enumerate(SPLITS):
+            rows = [np.flatnonzero(np.asarray(a["splits"]) == si) for a in arrays]
+            order = mix_split(si, rows, recipe.mix, recipe.seed, [a["lengths"] for a in arrays])
+            if order.sampling is not None:
+                mixing[split] = order.sampling
             for cond in recipe.conditions:
-                shard_paths[cond.name][split].append(f"{cond.name}/{stem}")
-            written += paths
-            shard_stats = journal.reusable(stem, paths)
-            if shard_stats is None:
-                shard_stats = _write_shard(shard_writer, recipe, vocabs, subwords, stem, order.langs[members],
-                                           order.rows[members], arrays, buckets, shard_index)
-                journal.record(stem, paths, shard_stats)
-            for cond in recipe.conditions:
-                _add_stat(stats[cond.name][split], shard_stats[cond.name])
-            advance(len(members), words=shard_stats[recipe.conditions[0].name][1])
-        buckets.remove()
+                shard_paths[cond.name][split] = []
+            shard_list = list(_shard_members(order, arrays, recipe.shards.max_tokens))
+            buckets = ShardBuckets(work, split, order.langs, order.rows,
+                                   np.repeat(np.arange(len(shard_list)), [len(m) for m in shard_list]),
+                                   [w.paths["tokens"] for w in writers], [a["lengths"] for a in arrays], starts,
+                                   pool)
+            pending = []
+            for shard_index, members in enumerate(shard_list):
+                stem = shard_stem(split, shard_index)
+                paths = [f"provenance/{stem}.npy"] + [p for c in recipe.conditions
+                                                      for p in shard_writer.paths(f"{c.name}/{stem}")]
+                for cond in recipe.conditions:
+                    shard_paths[cond.name][split].append(f"{cond.name}/{stem}")
+                written += paths
+                reused = journal.reusable(stem, paths)
+                task = None if reused is not None else pool.submit(
+                    _write_shard, shard_writer, recipe, vocabs, subwords, stem, order.langs[members],
+                    order.rows[members], arrays, buckets, shard_index)
+                pending.append((stem, paths, members, reused, task))
+            for stem, paths, members, shard_stats, task in pending:
+                if task is not None:
+                    try:
+                        shard_stats = task.result()
+                    except BaseException:
+                        pool.shutdown(cancel_futures=True)
+                        raise
+                    journal.record(stem, paths, shard_stats)
+                for cond in recipe.conditions:
+                    _add_stat(stats[cond.name][split], shard_stats[cond.name])
+                advance(len(members), words=shard_stats[recipe.conditions[0].name][1])
+            buckets.remove()
 
     advance = meter.begin("vocab files", total=len(recipe.conditions), unit="conditions")
     for cond, vocab, vocab_text in zip(recipe.conditions, vocabs, vocab_texts):

@@ -33,7 +33,7 @@ from .recipe import SPLITS, Recipe, load_recipe
 from .gather import ShardBuckets
 from .progress import BuildMeter
 from .scan import (ScanResult, ScanTask, TypeTable, WorkerTypeMaps, ordered_map, ragged_gather, release_tables,
-                   scan_block)
+                   scan_block, start_worker_server)
 from .resume import ShardJournal, build_fingerprint
 from .shards import PROVENANCE_DTYPE, ShardWriter, shard_stem, write_npy
 from .sources import InputFile, read_blocks
@@ -306,6 +306,8 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
                 journal: ShardJournal) -> BuildResult:
     tags = recipe.tags
     files = input_files(recipe)
+    if jobs > 1:
+        start_worker_server()
     with meter.stage("hash inputs", total=len(files), unit="files"):
         input_states = hash_inputs(files)
     hashes = {display: state.sha256 for display, state in input_states.items()}

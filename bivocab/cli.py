@@ -9,7 +9,7 @@ import click
 
 from . import __version__
 from .errors import BivocabError
-from .probe import DEFAULT_NGRAM
+from .defaults import DEFAULT_NGRAM
 
 
 class _Group(click.Group):

@@ -27,12 +27,12 @@ from .corpus import iter_sentences
 from .errors import InputError, OutputError, where
 from .manifest import MANIFEST, atomic_write_text, build_lock, canonical_json, read_manifest, sha256_file
 from .recipe import CleanSpec, ConditionSpec, Recipe, recipe_from_manifest
+from .defaults import DEFAULT_NGRAM
 from .segment import NUMBER, SPECIAL, WORD, segment, token_class
 from .sources import file_sha256
 from .subword import word_spans
 from .vocab import tsv_text
 
-DEFAULT_NGRAM = 8
 NGRAM_CLASSES: tuple[str, ...] = (WORD, NUMBER)   # the token classes that make up word n-grams
 MAX_HITS_PER_ITEM = 20                            # locations listed per item and kind (all are counted)
 PROBE_DIR = "probe"

@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import gc
 import multiprocessing
+import multiprocessing.forkserver
 import os
 import queue
 import time
@@ -315,6 +316,13 @@ def _context() -> multiprocessing.context.BaseContext:
     ctx = multiprocessing.get_context("forkserver")
     ctx.set_forkserver_preload(["bivocab.scan"])
     return ctx
+
+
+def start_worker_server() -> None:
+    """Start the fork server now (it imports the scan modules while the caller goes on with
+    other work, e.g. hashing the inputs), so that the first workers start without waiting."""
+    _context()
+    multiprocessing.forkserver.ensure_running()
 
 
 def _serve(fn: Callable[[T], R], inbox: multiprocessing.Queue, outbox: multiprocessing.Queue) -> None:

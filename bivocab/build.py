@@ -27,7 +27,8 @@ from .errors import BivocabError, OutputError
 from .hygiene import prepare_hygiene
 from .manifest import (CONTROL_FILES, INCOMPLETE, LOCK, MANIFEST, WORK, atomic_open, atomic_write_text,
                        build_lock, canonical_json, check_inputs_unchanged, checkpoint, environment, file_record,
-                       fsync_dir, hash_inputs, read_manifest, remove_temp_files, sha256_file, write_error)
+                       fsync_dir, read_manifest, remove_temp_files, sha256_file, start_hashing_inputs,
+                       write_error)
 from .mix import SplitOrder, mix_split
 from .recipe import SPLITS, Recipe, load_recipe
 from .gather import ShardBuckets
@@ -308,10 +309,7 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
     files = input_files(recipe)
     if jobs > 1:
         start_worker_server()
-    with meter.stage("hash inputs", total=len(files), unit="files"):
-        input_states = hash_inputs(files)
-    hashes = {display: state.sha256 for display, state in input_states.items()}
-    journal.begin(build_fingerprint(recipe.resolved(), hashes))
+    input_states = start_hashing_inputs(files)   # beside the scan; the journal needs them after it
 
     scans = [LanguageScan(tag) for tag in tags]
     writers = [_WorkArrays(work, tag) for tag in tags]
@@ -340,7 +338,11 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
             advance(result.bytes_read, words=len(global_tokens))
     release_tables()
     arrays = [w.close() for w in writers]
-    check_inputs_unchanged(files, input_states)
+    meter.begin("hash inputs")   # what is left of hashing the inputs after the scan (usually nothing)
+    states = input_states()
+    check_inputs_unchanged(files, states)
+    hashes = {display: state.sha256 for display, state in states.items()}
+    journal.begin(build_fingerprint(recipe.resolved(), hashes))
     for scan in scans:
         scan.split_counts = scan.split_counts[:, :len(scan.table)]
     if any(scan.sentences == 0 for scan in scans):
@@ -378,8 +380,9 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
     starts = [np.concatenate(([0], np.cumsum(a["lengths"])[:-1])).astype(np.int64) if len(a["lengths"])
               else np.zeros(0, np.int64) for a in arrays]
     # Shards are written by ``jobs`` threads (the gathers, look-ups, writes and hashes are numpy,
-    # hashlib and file calls that release the GIL); results are taken in shard order, so the
-    # journal, the statistics and the output do not depend on the number of threads.
+    # hashlib and file calls that release the GIL), each shard journaled by its thread once its
+    # files are in place; statistics are added in shard order, so nothing that is written
+    # depends on the number of threads.
     with ThreadPoolExecutor(max_workers=jobs, thread_name_prefix="bivocab-shard") as pool:
         for si, split in enumerate(SPLITS):
             rows = [np.flatnonzero(np.asarray(a["splits"]) == si) for a in arrays]
@@ -404,16 +407,15 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
                 reused = journal.reusable(stem, paths)
                 task = None if reused is not None else pool.submit(
                     _write_shard, shard_writer, recipe, vocabs, subwords, stem, order.langs[members],
-                    order.rows[members], arrays, buckets, shard_index)
-                pending.append((stem, paths, members, reused, task))
-            for stem, paths, members, shard_stats, task in pending:
+                    order.rows[members], arrays, buckets, shard_index, journal, paths)
+                pending.append((members, reused, task))
+            for members, shard_stats, task in pending:
                 if task is not None:
                     try:
                         shard_stats = task.result()
                     except BaseException:
                         pool.shutdown(cancel_futures=True)
                         raise
-                    journal.record(stem, paths, shard_stats)
                 for cond in recipe.conditions:
                     _add_stat(stats[cond.name][split], shard_stats[cond.name])
                 advance(len(members), words=shard_stats[recipe.conditions[0].name][1])
@@ -466,8 +468,10 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
 
 def _write_shard(writer: ShardWriter, recipe: Recipe, vocabs: list[Vocabulary],
                  subwords: dict[str, SubwordCondition], stem: str, langs: np.ndarray, rows_here: np.ndarray,
-                 arrays: list[dict[str, np.ndarray]], buckets: ShardBuckets, shard_index: int) -> dict:
-    """Write one shard (provenance, then every condition); return its statistics per condition."""
+                 arrays: list[dict[str, np.ndarray]], buckets: ShardBuckets, shard_index: int,
+                 journal: ShardJournal, paths: list[str]) -> dict:
+    """Write one shard (provenance, then every condition) and journal it (its ``paths``);
+    return its statistics per condition."""
     prov = np.empty(len(langs), dtype=PROVENANCE_DTYPE)
     gathered = []
     for li in range(len(recipe.tags)):
@@ -486,6 +490,7 @@ def _write_shard(writer: ShardWriter, recipe: Recipe, vocabs: list[Vocabulary],
             (mask, *sub.gather(li, rows_here[mask])) for li, (mask, _, _) in enumerate(gathered)]
         stat = shard_stats[cond.name] = [0, 0, [0] * len(recipe.tags), [0] * len(recipe.tags)]
         _write_condition_shard(writer, cond.name, stem, vocab, langs, here, stat, prov)
+    journal.record(stem, paths, shard_stats)
     return shard_stats
 
 

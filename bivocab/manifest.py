@@ -301,17 +301,44 @@ class InputState:
 def hash_inputs(files: Iterable[Any]) -> dict[str, InputState]:
     """sha256 and stat of every input (``InputFile``; a saved dataset directory is hashed
     member by member), keyed by its display path."""
-    states = {}
-    for source in files:
-        try:
-            before = os.stat(source.path)
-            digest = file_sha256(source.path)
-        except FileNotFoundError:
-            raise InputError(f"{source.display}: input file not found") from None
-        except OSError as exc:
-            raise InputError(f"{source.display}: cannot read input: {exc.strerror or exc}") from None
-        states[source.display] = InputState(digest, before.st_size, before.st_mtime_ns, before.st_ino)
-    return states
+    return start_hashing_inputs(files)()
+
+
+# Inputs are hashed beside the scan, which reads the same files (from the page cache).
+_INPUT_HASHES = ThreadPoolExecutor(max_workers=1, thread_name_prefix="bivocab-inputs")
+
+
+def start_hashing_inputs(files: Iterable[Any]) -> Callable[[], dict[str, InputState]]:
+    """Take the stat of every input now (a missing or unreadable input is reported at once) and
+    hash the inputs in a background thread; the returned function waits for the states (see
+    :func:`hash_inputs`).  A change after the stat is caught by :func:`check_inputs_unchanged`."""
+    files = list(files)
+    befores = [_input_stat(source) for source in files]
+
+    def states() -> dict[str, InputState]:
+        out = {}
+        for source, before in zip(files, befores):
+            try:
+                digest = file_sha256(source.path)
+            except OSError as exc:
+                raise _input_error(source, exc) from None
+            out[source.display] = InputState(digest, before.st_size, before.st_mtime_ns, before.st_ino)
+        return out
+
+    return _INPUT_HASHES.submit(states).result
+
+
+def _input_stat(source: Any) -> os.stat_result:
+    try:
+        return os.stat(source.path)
+    except OSError as exc:
+        raise _input_error(source, exc) from None
+
+
+def _input_error(source: Any, exc: OSError) -> InputError:
+    if isinstance(exc, FileNotFoundError):
+        return InputError(f"{source.display}: input file not found")
+    return InputError(f"{source.display}: cannot read input: {exc.strerror or exc}")
 
 
 def check_inputs_unchanged(files: Iterable[Any], states: dict[str, InputState]) -> None:

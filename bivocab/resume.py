@@ -14,6 +14,7 @@ import contextlib
 import hashlib
 import json
 import os
+import threading
 from pathlib import Path
 from typing import Any
 
@@ -52,6 +53,7 @@ class ShardJournal:
         self.written: list[str] = []
         # build.json "files" entries of the shards of this build, hashed once when journaled
         self.records: dict[str, dict[str, Any]] = {}
+        self._lock = threading.Lock()   # shards are recorded by the threads that wrote them
         self._read_previous()
 
     def _read_previous(self) -> None:
@@ -117,15 +119,16 @@ class ShardJournal:
         files = [file_record(self.out, p) for p in paths]
         line = json.dumps({"shard": shard, "files": files, "stats": stats, "vocabularies": self.vocabularies},
                           sort_keys=True) + "\n"
-        try:
-            with open(self.path, "a", encoding="utf-8") as handle:
-                handle.write(line)
-                handle.flush()
-                os.fsync(handle.fileno())
-        except OSError as exc:
-            raise write_error(self.path, exc) from None
-        self.written.append(shard)
-        self.records.update({f["path"]: f for f in files})
+        with self._lock:
+            try:
+                with open(self.path, "a", encoding="utf-8") as handle:
+                    handle.write(line)
+                    handle.flush()
+                    os.fsync(handle.fileno())
+            except OSError as exc:
+                raise write_error(self.path, exc) from None
+            self.written.append(shard)
+            self.records.update({f["path"]: f for f in files})
 
     def remove(self) -> None:
         with contextlib.suppress(FileNotFoundError):

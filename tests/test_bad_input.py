@@ -155,15 +155,15 @@ def _prepare(name: str, root: Path, monkeypatch: pytest.MonkeyPatch) -> Row:
 
         monkeypatch.setattr(build_module, "read_blocks", appending)
     if name == "file-changes-after-hashing":
-        real_hash = build_module.hash_inputs
+        real_start = build_module.start_hashing_inputs
 
         def hash_then_change(files):
-            states = real_hash(files)
+            states = real_start(files)   # the stat is taken, the hashing goes on beside the scan
             with open(root / row.path, "ab") as handle:
                 handle.write(b"A late line.\n")
             return states
 
-        monkeypatch.setattr(build_module, "hash_inputs", hash_then_change)
+        monkeypatch.setattr(build_module, "start_hashing_inputs", hash_then_change)
     return row
 
 

@@ -126,8 +126,9 @@ class _WrittenFile:
 # Absolute path -> digests of files written by atomic_open in this process (taken by file_record).
 _WRITTEN: dict[str, _WrittenFile] = {}
 # Content digests run beside the writing (hashlib and numpy release the GIL on large buffers),
-# so the shard stage's single thread does not wait for them; one thread keeps memory bounded.
-_DIGESTS = ThreadPoolExecutor(max_workers=1, thread_name_prefix="bivocab-digest")
+# so the shard threads do not wait for them; memory stays bounded because each shard thread
+# waits for its shard's digests when it journals the shard (two threads keep up with two writers).
+_DIGESTS = ThreadPoolExecutor(max_workers=2, thread_name_prefix="bivocab-digest")
 
 
 def _stat_key(path: Path) -> tuple[int, int, int, int]:

@@ -67,6 +67,10 @@ def check(recipe: Path) -> None:
 @click.option("--profile", is_flag=True, help="Print the time spent in each stage (to stderr).")
 def build_command(recipe: Path, out: Path, jobs: int, force: bool, quiet: bool, resume: bool, profile: bool) -> None:
     """Build every condition of RECIPE into OUT."""
+    if jobs > 1:
+        from .scan import start_worker_server
+
+        start_worker_server()   # the workers' modules load while this process loads the rest
     from .build import build
     from .progress import BuildMeter
     from .report import input_notes, summary_text

@@ -26,9 +26,9 @@ from . import __version__
 from .errors import BivocabError, OutputError
 from .hygiene import prepare_hygiene
 from .manifest import (CONTROL_FILES, INCOMPLETE, LOCK, MANIFEST, WORK, atomic_open, atomic_write_text,
-                       build_lock, canonical_json, check_inputs_unchanged, checkpoint, environment, file_record,
-                       fsync_dir, read_manifest, remove_temp_files, sha256_file, start_hashing_inputs,
-                       write_error)
+                       background_digests, build_lock, canonical_json, check_inputs_unchanged, checkpoint, environment,
+                       file_record, fsync_dir, read_manifest, remove_temp_files, sha256_file,
+                       start_hashing_inputs, write_error)
 from .mix import SplitOrder, mix_split
 from .recipe import SPLITS, Recipe, load_recipe
 from .gather import ShardBuckets
@@ -174,7 +174,8 @@ def _build_locked(recipe: Recipe, out: Path, jobs: int, force: bool, progress: P
 
         meter = progress if isinstance(progress, BuildMeter) else BuildMeter(on_stage=progress)
         meter.stage_hooks.insert(0, lambda stage: checkpoint(f"stage:{stage}"))
-        result = _build_into(recipe, out, work, jobs, meter, journal)
+        with background_digests(jobs > 1):
+            result = _build_into(recipe, out, work, jobs, meter, journal)
         meter.begin("finish")   # stale files, build.json, directory syncs
         _remove_stale(out, stale, result.manifest)
         for directory in {(out / f["path"]).parent for f in result.manifest["files"]}:
@@ -309,7 +310,13 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
     files = input_files(recipe)
     if jobs > 1:
         start_worker_server()
-    input_states = start_hashing_inputs(files)   # beside the scan; the journal needs them after it
+    # --jobs N keeps at most N cores busy: with more than one, the inputs are hashed beside the
+    # scan (the journal needs the hashes only after it) and shard digests beside the writing.
+    if jobs > 1:
+        input_states = start_hashing_inputs(files)
+    else:
+        with meter.stage("hash inputs", total=len(files), unit="files"):
+            input_states = start_hashing_inputs(files, background=False)
 
     scans = [LanguageScan(tag) for tag in tags]
     writers = [_WorkArrays(work, tag) for tag in tags]
@@ -338,7 +345,8 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
             advance(result.bytes_read, words=len(global_tokens))
     release_tables()
     arrays = [w.close() for w in writers]
-    meter.begin("hash inputs")   # what is left of hashing the inputs after the scan (usually nothing)
+    if jobs > 1:
+        meter.begin("hash inputs")   # what is left of hashing the inputs after the scan (usually nothing)
     states = input_states()
     check_inputs_unchanged(files, states)
     hashes = {display: state.sha256 for display, state in states.items()}

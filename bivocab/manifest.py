@@ -128,7 +128,21 @@ _WRITTEN: dict[str, _WrittenFile] = {}
 # Content digests run beside the writing (hashlib and numpy release the GIL on large buffers),
 # so the shard threads do not wait for them; memory stays bounded because each shard thread
 # waits for its shard's digests when it journals the shard (two threads keep up with two writers).
+# A build with --jobs 1 computes them in its own thread (see :func:`background_digests`).
 _DIGESTS = ThreadPoolExecutor(max_workers=2, thread_name_prefix="bivocab-digest")
+_digests_in_background = True
+
+
+@contextlib.contextmanager
+def background_digests(enabled: bool) -> Iterator[None]:
+    """Within the block, content digests are computed by background threads (``enabled``) or
+    at once by the writing thread (a build told to use one core)."""
+    global _digests_in_background
+    previous, _digests_in_background = _digests_in_background, enabled
+    try:
+        yield
+    finally:
+        _digests_in_background = previous
 
 
 def _stat_key(path: Path) -> tuple[int, int, int, int]:
@@ -142,7 +156,12 @@ def note_content(path: Path, content: Callable[[], str]) -> None:
     read the file back.  The data must not change until file_record has taken the digest."""
     key = os.path.abspath(path)
     if key in _WRITTEN:
-        _WRITTEN[key] = dataclasses.replace(_WRITTEN[key], content_sha256=_DIGESTS.submit(content))
+        if _digests_in_background:
+            digest = _DIGESTS.submit(content)
+        else:
+            digest = Future()
+            digest.set_result(content())
+        _WRITTEN[key] = dataclasses.replace(_WRITTEN[key], content_sha256=digest)
 
 
 @contextlib.contextmanager
@@ -302,17 +321,18 @@ class InputState:
 def hash_inputs(files: Iterable[Any]) -> dict[str, InputState]:
     """sha256 and stat of every input (``InputFile``; a saved dataset directory is hashed
     member by member), keyed by its display path."""
-    return start_hashing_inputs(files)()
+    return start_hashing_inputs(files, background=False)()
 
 
 # Inputs are hashed beside the scan, which reads the same files (from the page cache).
 _INPUT_HASHES = ThreadPoolExecutor(max_workers=1, thread_name_prefix="bivocab-inputs")
 
 
-def start_hashing_inputs(files: Iterable[Any]) -> Callable[[], dict[str, InputState]]:
+def start_hashing_inputs(files: Iterable[Any], background: bool = True) -> Callable[[], dict[str, InputState]]:
     """Take the stat of every input now (a missing or unreadable input is reported at once) and
-    hash the inputs in a background thread; the returned function waits for the states (see
-    :func:`hash_inputs`).  A change after the stat is caught by :func:`check_inputs_unchanged`."""
+    hash the inputs in a background thread (else at once); the returned function waits for the
+    states (see :func:`hash_inputs`).  A change after the stat is caught by
+    :func:`check_inputs_unchanged`."""
     files = list(files)
     befores = [_input_stat(source) for source in files]
 
@@ -326,7 +346,10 @@ def start_hashing_inputs(files: Iterable[Any]) -> Callable[[], dict[str, InputSt
             out[source.display] = InputState(digest, before.st_size, before.st_mtime_ns, before.st_ino)
         return out
 
-    return _INPUT_HASHES.submit(states).result
+    if background:
+        return _INPUT_HASHES.submit(states).result
+    done = states()
+    return lambda: done
 
 
 def _input_stat(source: Any) -> os.stat_result:

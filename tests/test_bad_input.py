@@ -157,8 +157,8 @@ def _prepare(name: str, root: Path, monkeypatch: pytest.MonkeyPatch) -> Row:
     if name == "file-changes-after-hashing":
         real_start = build_module.start_hashing_inputs
 
-        def hash_then_change(files):
-            states = real_start(files)   # the stat is taken, the hashing goes on beside the scan
+        def hash_then_change(files, **options):
+            states = real_start(files, **options)   # the stat is taken (the hashing may go on beside the scan)
             with open(root / row.path, "ab") as handle:
                 handle.write(b"A late line.\n")
             return states
@@ -185,6 +185,18 @@ def test_bad_input_row(name: str, tmp_path: Path, monkeypatch: pytest.MonkeyPatc
     assert {k: report.get(k) for k in row.counters} == row.counters
     notes = [line for line in result.stderr.splitlines() if line.startswith(f"note: {row.path}: ")]
     assert notes == [f"note: {row.path}: {row.note}"]
+
+
+@pytest.mark.parametrize("name", ["file-changes-while-read", "file-changes-after-hashing"])
+def test_an_input_that_changes_is_caught_with_two_jobs_too(name: str, tmp_path: Path,
+                                                           monkeypatch: pytest.MonkeyPatch) -> None:
+    # With more than one job the inputs are hashed beside the scan instead of before it.
+    row = _prepare(name, tmp_path, monkeypatch)
+    os.chdir(tmp_path)
+    result = CliRunner().invoke(main, ["build", "recipe.toml", "--out", "out", "--jobs", "2"])
+    assert result.exit_code == 2, result.output
+    assert re.fullmatch(f"error: {row.error}\n", result.stderr), result.stderr
+    assert not (tmp_path / "out" / MANIFEST).exists()
 
 
 def test_every_matrix_row_is_documented() -> None:

@@ -377,9 +377,11 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
             advance(1)
 
     advance = meter.begin("shards", total=sum(s.sentences for s in scans), unit="sentences")
-    vocab_texts = [vocab_tsv(v) for v in vocabs]   # written with the vocab files below
-    journal.bind_vocabularies([text.encode("utf-8") for text in vocab_texts]
+    # A shard is reused only if it was encoded with the same look-up tables and specials (and
+    # subword models): they alone decide its ids.
+    journal.bind_vocabularies([encoding_key(v) for v in vocabs]
                               + [model for sub in subwords.values() for model in sub.models])
+    vocab_files = VocabFiles(out, recipe, vocabs, subwords, scans, type_index)
     written: list[str] = []
     shard_paths: dict[str, dict[str, list[str]]] = {c.name: {} for c in recipe.conditions}
     stats = {c.name: {s: [0, 0, [0] * len(tags), [0] * len(tags)] for s in SPLITS} for c in recipe.conditions}
@@ -391,7 +393,11 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
     # hashlib and file calls that release the GIL), each shard journaled by its thread once its
     # files are in place; statistics are added in shard order, so nothing that is written
     # depends on the number of threads.
-    with ThreadPoolExecutor(max_workers=jobs, thread_name_prefix="bivocab-shard") as pool:
+    with contextlib.ExitStack() as threads:
+        pool = threads.enter_context(_threads(jobs, "bivocab-shard"))
+        # The vocab files are written beside the shards when more than one core may be used.
+        vocab_paths = threads.enter_context(_threads(1, "bivocab-vocab-files")).submit(vocab_files.write) \
+            if jobs > 1 else None
         for si, split in enumerate(SPLITS):
             rows = [np.flatnonzero(np.asarray(a["splits"]) == si) for a in arrays]
             order = mix_split(si, rows, recipe.mix, recipe.seed, [a["lengths"] for a in arrays])
@@ -419,42 +425,18 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
                 pending.append((members, reused, task))
             for members, shard_stats, task in pending:
                 if task is not None:
-                    try:
-                        shard_stats = task.result()
-                    except BaseException:
-                        pool.shutdown(cancel_futures=True)
-                        raise
+                    shard_stats = task.result()
                 for cond in recipe.conditions:
                     _add_stat(stats[cond.name][split], shard_stats[cond.name])
                 advance(len(members), words=shard_stats[recipe.conditions[0].name][1])
             buckets.remove()
 
-    advance = meter.begin("vocab files", total=len(recipe.conditions), unit="conditions")
-    for cond, vocab, vocab_text in zip(recipe.conditions, vocabs, vocab_texts):
-        path = f"{cond.name}/vocab.tsv"
-        atomic_write_text(out / path, vocab_text)
-        written.append(path)
-        if cond.name in subwords:
-            for li, (tag, model) in enumerate(zip(tags, subwords[cond.name].models)):
-                path = model_path(cond.name, tag)
-                with atomic_open(out / path) as handle:
-                    handle.write(model)
-                written.append(path)
-                if cond.units == "unigram":
-                    path = tokenizer_path(cond.name, tag)
-                    atomic_write_text(out / path, unigram_tokenizer_json(model, vocab, li, recipe.clean))
-                    written.append(path)
-            advance(1)
-            continue
-        for li, tag in enumerate(tags):
-            path = f"{cond.name}/tokenizer.{tag}.json"
-            atomic_write_text(out / path, tokenizer_json(vocab, li, recipe.clean))
-            written.append(path)
-        advance(1)
-    for scan in scans:
-        path = f"types/{scan.tag}.tsv"
-        atomic_write_text(out / path, types_tsv(scan, type_index, scans.index(scan)))
-        written.append(path)
+        advance = meter.begin("vocab files", total=len(recipe.conditions), unit="conditions")
+        if vocab_paths is None:
+            written += vocab_files.write(advance)
+        else:
+            written += vocab_paths.result()
+            advance(len(recipe.conditions))
 
     summaries = tuple(
         ConditionSummary(cond.name, cond.policy, len(vocab), {
@@ -472,6 +454,67 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
     meter.end()
     return BuildResult(out, manifest, summaries, tuple(journal.reused),
                        len(journal.reused) + len(journal.written))
+
+
+@contextlib.contextmanager
+def _threads(count: int, name: str) -> Iterator[ThreadPoolExecutor]:
+    """A thread pool that is always joined on leaving the block (so nothing writes into the
+    build directory after the build returns), its queued tasks dropped if the block failed."""
+    pool = ThreadPoolExecutor(max_workers=count, thread_name_prefix=name)
+    failed = True
+    try:
+        yield pool
+        failed = False
+    finally:
+        pool.shutdown(wait=True, cancel_futures=failed)
+
+
+class VocabFiles:
+    """The vocabulary files of a build: per condition vocab.tsv, the tokenizer files (or the
+    subword models), and types/<tag>.tsv per language."""
+
+    def __init__(self, out: Path, recipe: Recipe, vocabs: list[Vocabulary], subwords: dict[str, SubwordCondition],
+                 scans: list[LanguageScan], type_index: TypeIndex) -> None:
+        self.out, self.recipe, self.vocabs, self.subwords = out, recipe, vocabs, subwords
+        self.scans, self.type_index = scans, type_index
+
+    def write(self, advance: Callable[..., None] = lambda amount: None) -> list[str]:
+        """Write every file (``advance(1)`` after each condition); return their paths."""
+        out, recipe, tags = self.out, self.recipe, self.recipe.tags
+        written = []
+        for cond, vocab in zip(recipe.conditions, self.vocabs):
+            path = f"{cond.name}/vocab.tsv"
+            atomic_write_text(out / path, vocab_tsv(vocab))
+            written.append(path)
+            if cond.name in self.subwords:
+                for li, (tag, model) in enumerate(zip(tags, self.subwords[cond.name].models)):
+                    path = model_path(cond.name, tag)
+                    with atomic_open(out / path) as handle:
+                        handle.write(model)
+                    written.append(path)
+                    if cond.units == "unigram":
+                        path = tokenizer_path(cond.name, tag)
+                        atomic_write_text(out / path, unigram_tokenizer_json(model, vocab, li, recipe.clean))
+                        written.append(path)
+                advance(1)
+                continue
+            for li, tag in enumerate(tags):
+                path = f"{cond.name}/tokenizer.{tag}.json"
+                atomic_write_text(out / path, tokenizer_json(vocab, li, recipe.clean))
+                written.append(path)
+            advance(1)
+        for li, scan in enumerate(self.scans):
+            path = f"types/{scan.tag}.tsv"
+            atomic_write_text(out / path, types_tsv(scan, self.type_index, li))
+            written.append(path)
+        return written
+
+
+def encoding_key(vocab: Vocabulary) -> bytes:
+    """What decides the ids of a word-level condition's shards: the look-up tables, the
+    special ids and the id width."""
+    tables = b"".join(np.asarray(lut, dtype="<u4").tobytes() + b"|" for lut in vocab.luts)
+    return tables + repr((vocab.unk_ids, vocab.eos_ids, vocab.dtype.str)).encode("ascii")
 
 
 def _write_shard(writer: ShardWriter, recipe: Recipe, vocabs: list[Vocabulary],

@@ -3,8 +3,8 @@
 After every shard (all of its files renamed into place) the build appends one JSON line to
 ``DIR/.bivocab-journal.jsonl``; the first line holds the build's fingerprint (resolved recipe,
 input hashes, library versions and bivocab's own source).  ``build --resume`` reuses a shard
-only when the fingerprint is unchanged, the vocabularies (and subword models) this run built are
-byte-identical to those the shard was encoded with, and every file of the shard still has its
+only when the fingerprint is unchanged, this run encodes with the same look-up tables, special
+ids and subword models as the shard was encoded with, and every file of the shard still has its
 recorded size and sha256; everything else is written again.  A torn last line (a kill mid-append) is ignored.
 """
 
@@ -90,8 +90,9 @@ class ShardJournal:
             raise write_error(self.path, exc) from None
 
     def bind_vocabularies(self, texts: list[bytes]) -> None:
-        """Record what this run encodes with (vocab.tsv texts, subword models): a shard encoded
-        with anything else is not reused, even if the fingerprint matched."""
+        """Record what this run encodes with (each condition's look-up tables and special ids,
+        subword models): a shard encoded with anything else is not reused, even if the
+        fingerprint matched."""
         digest = hashlib.sha256()
         for text in texts:
             digest.update(hashlib.sha256(text).digest())

@@ -285,6 +285,13 @@ class TypeTable:
     def merge(self, local_types: list[str]) -> np.ndarray:
         """Intern a block's local types; return the local -> global id lookup table."""
         index, surfaces = self.index, self.surfaces
+        # Usually none of a worker's new types is known yet (a worker per language): add them
+        # all at once.  (A worker reports each of its types once, so ``local_types`` are distinct.)
+        if index.keys().isdisjoint(local_types):
+            first = len(surfaces)
+            index.update(zip(local_types, range(first, first + len(local_types))))
+            surfaces += local_types
+            return np.arange(first, first + len(local_types), dtype=np.uint32)
         lut = np.empty(len(local_types), dtype=np.uint32)
         for i, surface in enumerate(local_types):
             gid = index.get(surface)

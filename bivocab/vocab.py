@@ -12,12 +12,14 @@ from __future__ import annotations
 import csv
 import io
 import json
-import re
-from collections.abc import Iterator, Sequence
+from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass
+from itertools import compress
 from typing import Callable, overload
 
 import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
 
 from .errors import BivocabError
 from .recipe import ConditionSpec, CleanSpec
@@ -75,8 +77,7 @@ class Vocabulary:
 
     def visible_ids(self, lang_index: int) -> list[int]:
         """Ids a sentence of this language can be encoded to (shared entries + its own), ascending."""
-        tag = self.tags[lang_index]
-        return [i for i, lang in enumerate(self.langs) if lang == SHARED or lang == tag]
+        return list(compress(range(len(self)), map({SHARED, self.tags[lang_index]}.__contains__, self.langs)))
 
     def visible(self, lang_index: int) -> list[Entry]:
         """Entries a sentence of this language can be encoded to (shared + its own)."""
@@ -176,18 +177,20 @@ class TypeIndex:
 
     classes: tuple[np.ndarray, ...]
     ranks: tuple[np.ndarray, ...]
-    by_rank: tuple[str, ...]        # rank -> surface
+    by_rank: np.ndarray             # rank -> surface (an object array, so that numpy can gather surfaces)
     class_by_rank: np.ndarray       # rank -> class index
 
 
 def index_types(surfaces: list[list[str]]) -> TypeIndex:
     """Classify and rank each language's types once (the costly per-type Python work)."""
     code = {name: i for i, name in enumerate(CLASS_NAMES)}
-    classes = tuple(np.fromiter((code[token_class(s)] for s in types), dtype=np.uint8, count=len(types))
+    classes = tuple(np.fromiter(map(code.__getitem__, map(token_class, types)), dtype=np.uint8, count=len(types))
                     for types in surfaces)
-    by_rank = tuple(sorted(set().union(*surfaces)))
-    rank = {s: i for i, s in enumerate(by_rank)}
-    ranks = tuple(np.fromiter((rank[s] for s in types), dtype=np.int64, count=len(types)) for types in surfaces)
+    ordered = sorted(set().union(*surfaces))
+    rank = dict(zip(ordered, range(len(ordered))))
+    ranks = tuple(np.fromiter(map(rank.__getitem__, types), dtype=np.int64, count=len(types)) for types in surfaces)
+    by_rank = np.empty(len(ordered), dtype=object)
+    by_rank[:] = ordered
     class_by_rank = np.zeros(len(by_rank), dtype=np.uint8)
     for c, r in zip(classes, ranks):
         class_by_rank[r] = c
@@ -249,11 +252,12 @@ def build_vocabulary(condition: ConditionSpec, tags: tuple[str, ...], surfaces: 
     chosen_keys = keys[chosen]
     ranks, lang_codes = chosen_keys // (n_lang + 1), chosen_keys % (n_lang + 1)
     special_names = [name for name, _ in specials]
-    entry_surfaces = special_names + list(map(index.by_rank.__getitem__, ranks.tolist()))
+    chosen_surfaces = index.by_rank[ranks]
+    entry_surfaces = special_names + chosen_surfaces.tolist()
     # A tagged token is the surface plus a suffix (tagged_token); adding object arrays runs that
     # concatenation in one numpy loop, and the empty suffix of a shared entry keeps the surface.
     suffixes = np.array(["", *(tagged_token("", t) for t in tags)], dtype=object)
-    tokens = special_names + (np.array(entry_surfaces[len(specials):], dtype=object) + suffixes[lang_codes]).tolist()
+    tokens = special_names + (chosen_surfaces + suffixes[lang_codes]).tolist()
     langs = [lang for _, lang in specials] + np.array([SHARED, *tags], dtype=object)[lang_codes].tolist()
     _check_unique(condition, tokens, langs, entry_surfaces)
     classes = [SPECIAL] * len(specials) + np.array(CLASS_NAMES, dtype=object)[index.class_by_rank[ranks]].tolist()
@@ -296,7 +300,7 @@ def vocab_tsv(vocab: Vocabulary) -> str:
     """The vocab.tsv contract: ``id token surface lang class count count_<tag>...``."""
     header = ["id", "token", "surface", "lang", "class", "count"] + [f"count_{t}" for t in vocab.tags]
     counts = vocab.counts
-    columns = [list(map(str, range(len(vocab)))), quote_column(vocab.tokens), quote_column(vocab.surfaces),
+    columns = [decimal_column(np.arange(len(vocab))), quote_column(vocab.tokens), quote_column(vocab.surfaces),
                quote_column(vocab.langs), vocab.classes, decimal_column(counts.sum(axis=1)),
                *(decimal_column(column) for column in counts.T)]
     return tsv_columns(header, columns)
@@ -314,14 +318,12 @@ def language_types_tsv(surfaces: list[str], split_counts: np.ndarray, index: Typ
 
 
 def decimal_column(values: np.ndarray) -> list[str]:
-    """Each integer as ``str`` writes it.  A count column repeats few distinct values (most
-    types are rare), so each distinct value is converted once.
+    """Each integer as ``str`` writes it; arrow's cast formats the whole column in one call.
 
-    >>> decimal_column(np.array([3, 1, 3, 12]))
-    ['3', '1', '3', '12']
+    >>> decimal_column(np.array([3, -1, 0, 12]))
+    ['3', '-1', '0', '12']
     """
-    distinct, position = np.unique(values, return_inverse=True)
-    return np.array(list(map(str, distinct.tolist())), dtype=object)[position.reshape(-1)].tolist()
+    return pc.cast(pa.array(values), pa.string()).to_pylist()
 
 
 def tsv_text(header: list[str], rows: list[list[str]]) -> str:
@@ -335,7 +337,7 @@ def tsv_text(header: list[str], rows: list[list[str]]) -> str:
 
 
 # Characters that can make the csv module quote a field (delimiter, quote, line ends).
-_QUOTABLE = re.compile(r'[\t"\r\n]')
+_QUOTABLE = '\t"\r\n'
 
 
 def quote_column(values: list[str]) -> list[str]:
@@ -345,19 +347,39 @@ def quote_column(values: list[str]) -> list[str]:
     >>> quote_column(['Kai', 'a\\tb'])
     ['Kai', '"a\\tb"']
     """
-    return _rewrite_matching(values, _QUOTABLE, lambda value: tsv_text([value, ""], [])[:-2])
+    return _rewrite_holding(values, _QUOTABLE, lambda value: tsv_text([value, ""], [])[:-2])
 
 
-def _rewrite_matching(values: list[str], pattern: re.Pattern[str], rewrite: Callable[[str], str]) -> list[str]:
-    """``values`` with ``rewrite`` applied to those holding a match of ``pattern`` (a single
-    character class), found from the match positions in the joined text: one regex pass."""
+# Joins a column for the character search; cleaned text never holds it (see tokenizer_doc's
+# normalizer), and the search still works, only slower, when a value does.
+_SEPARATOR = "\x7f"
+
+
+def _rewrite_holding(values: Iterable[str], chars: str, rewrite: Callable[[str], str]) -> list[str]:
+    """``values`` with ``rewrite`` applied to the few that hold one of ``chars`` (not the
+    separator), found by str.find in the joined column, which runs at memory speed."""
     out = list(values)
-    joined = "".join(out)
-    if not pattern.search(joined):
+    joined = _SEPARATOR.join(out)
+    positions = []
+    for char in chars:
+        at = joined.find(char)
+        while at >= 0:
+            positions.append(at)
+            at = joined.find(char, at + 1)
+    if not positions:
         return out
-    ends = np.cumsum(np.fromiter(map(len, out), dtype=np.int64, count=len(out)))
-    positions = np.array([m.start() for m in pattern.finditer(joined)], dtype=np.int64)
-    for i in np.unique(np.searchsorted(ends, positions, side="right")).tolist():
+    positions.sort()
+    if joined.count(_SEPARATOR) == len(out) - 1:
+        # No value holds the separator: the separators before a position count the values before it.
+        indices, index, start = [], 0, 0
+        for at in positions:
+            index += joined.count(_SEPARATOR, start, at)
+            start = at
+            indices.append(index)
+    else:
+        starts_of_next = np.cumsum(np.fromiter(map(len, out), dtype=np.int64, count=len(out)) + 1)
+        indices = np.searchsorted(starts_of_next, positions, side="right").tolist()
+    for i in dict.fromkeys(indices):
         out[i] = rewrite(out[i])
     return out
 
@@ -424,7 +446,7 @@ def _tokenizer_doc(vocab: Vocabulary, lang_index: int, clean: CleanSpec, mapping
 # Stands in for the vocabulary while the library writes the rest of the file.
 _VOCAB_PLACEHOLDER = "\x00bivocab-vocab\x00"
 # Characters that json.dumps(..., ensure_ascii=False) writes as an escape (json.encoder.ESCAPE).
-_JSON_ESCAPED = re.compile(r'[\x00-\x1f\\"]')
+_JSON_ESCAPED = "".join(map(chr, range(0x20))) + '\\"'
 
 
 def tokenizer_json(vocab: Vocabulary, lang_index: int, clean: CleanSpec) -> str:
@@ -445,5 +467,5 @@ def tokenizer_json(vocab: Vocabulary, lang_index: int, clean: CleanSpec) -> str:
         raise RuntimeError("tokenizers wrote the WordLevel vocabulary in an unexpected layout")
     indent = head[head.rfind("\n") + 1:]
     mapping = _word_level_vocab(vocab, lang_index)
-    keys = _rewrite_matching(list(mapping), _JSON_ESCAPED, lambda key: json.dumps(key, ensure_ascii=False)[1:-1])
+    keys = _rewrite_holding(mapping, _JSON_ESCAPED, lambda key: json.dumps(key, ensure_ascii=False)[1:-1])
     return head + (",\n" + indent).join([f'"{key}": {i}' for key, i in zip(keys, mapping.values())]) + tail

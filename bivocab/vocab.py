@@ -397,18 +397,20 @@ def tokenizer_doc(vocab: Vocabulary, lang_index: int, clean: CleanSpec) -> dict:
     Its normalizer repeats our cleaning (whitespace, normal form, case), its pre-tokenizer is our
     segmentation regex, and its post-processor appends the end-of-sentence token.
     """
-    return _tokenizer_doc(vocab, lang_index, clean, _word_level_vocab(vocab, lang_index))
+    return _tokenizer_doc(vocab, lang_index, clean, dict(zip(*_word_level_vocab(vocab, lang_index))))
 
 
-def _word_level_vocab(vocab: Vocabulary, lang_index: int) -> dict[str, int]:
-    """The tokenizer vocabulary of one language in id order: the surface (a special's is its
-    token) of each entry the language can use -> its id."""
+def _word_level_vocab(vocab: Vocabulary, lang_index: int) -> tuple[list[str], list[int]]:
+    """The tokenizer vocabulary of one language in id order, as keys and ids: the surface (a
+    special's is its token) of each entry the language can use, and its id."""
     ids = vocab.visible_ids(lang_index)
-    mapping = dict(zip(map(vocab.surfaces.__getitem__, ids), ids))
-    if len(mapping) < len(ids):
-        # A repeated key keeps its first place but takes the last id: put the ids back in order.
-        mapping = dict(sorted(mapping.items(), key=lambda kv: kv[1]))
-    return mapping
+    keys = list(map(vocab.surfaces.__getitem__, ids))
+    if len(set(keys)) < len(keys):
+        # As in a dict display, a repeated key keeps its first place but takes the last id;
+        # then the entries go back into id order.
+        mapping = dict(sorted(dict(zip(keys, ids)).items(), key=lambda kv: kv[1]))
+        keys, ids = list(mapping), list(mapping.values())
+    return keys, ids
 
 
 def _tokenizer_doc(vocab: Vocabulary, lang_index: int, clean: CleanSpec, mapping: dict[str, int]) -> dict:
@@ -466,6 +468,6 @@ def tokenizer_json(vocab: Vocabulary, lang_index: int, clean: CleanSpec) -> str:
     if not sep or placeholder in tail:
         raise RuntimeError("tokenizers wrote the WordLevel vocabulary in an unexpected layout")
     indent = head[head.rfind("\n") + 1:]
-    mapping = _word_level_vocab(vocab, lang_index)
-    keys = _rewrite_holding(mapping, _JSON_ESCAPED, lambda key: json.dumps(key, ensure_ascii=False)[1:-1])
-    return head + (",\n" + indent).join([f'"{key}": {i}' for key, i in zip(keys, mapping.values())]) + tail
+    keys, ids = _word_level_vocab(vocab, lang_index)
+    keys = _rewrite_holding(keys, _JSON_ESCAPED, lambda key: json.dumps(key, ensure_ascii=False)[1:-1])
+    return head + (",\n" + indent).join([f'"{key}": {i}' for key, i in zip(keys, ids)]) + tail

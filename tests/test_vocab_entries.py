@@ -3,6 +3,7 @@ one-entry-at-a-time definitions (the csv module writing rows, str formatting int
 
 from __future__ import annotations
 
+import json
 import pickle
 import types
 
@@ -10,11 +11,13 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from tokenizers import Tokenizer
 
 from bivocab.build import types_tsv
-from bivocab.recipe import POLICIES, ConditionSpec, VocabSpec
+from bivocab.recipe import POLICIES, CleanSpec, ConditionSpec, VocabSpec
 from bivocab.segment import SPECIAL, token_class
-from bivocab.vocab import SHARED, build_vocabulary, decimal_column, index_types, quote_column, tsv_text, vocab_tsv
+from bivocab.vocab import (SHARED, build_vocabulary, decimal_column, index_types, quote_column, tokenizer_doc,
+                           tokenizer_json, tsv_text, vocab_tsv)
 
 TAGS = ("en", "de")
 # Letters, digits, punctuation and the characters that make a TSV field quoted or a JSON string
@@ -100,3 +103,17 @@ def test_quote_column_matches_the_csv_module_when_values_hold_the_search_separat
 @given(st.lists(st.integers(-(1 << 63), (1 << 63) - 1)))
 def test_decimal_column_formats_integers_as_str_does(values):
     assert decimal_column(np.array(values, dtype=np.int64)) == [str(v) for v in values]
+
+
+def test_a_surface_spelled_like_a_special_token_keeps_the_dict_rule_in_the_tokenizer_file():
+    # Under word-tagged the surface "<unk>" is the entry "<unk>@en", whose tokenizer key repeats the special's.
+    cond = ConditionSpec(name="c", policy="word-tagged", classes=dict(POLICIES["word-tagged"]), vocab=VocabSpec())
+    vocab = build_vocabulary(cond, TAGS, [["<unk>", "Kai"], ["Boot"]], [np.array([1, 3]), np.array([2])])
+    # Reference: the per-entry rule, a dict display over the visible entries, then sorted by id.
+    mapping = {e.surface if e.cls != SPECIAL else e.token: e.id for e in vocab.visible(0)}
+    expected = sorted(mapping.items(), key=lambda kv: kv[1])
+    doc = tokenizer_doc(vocab, 0, CleanSpec())
+    assert list(doc["model"]["vocab"].items()) == expected and len(expected) < len(vocab.visible(0))
+    # Reference: the tokenizers library (PyPI) writing the whole document.
+    whole = Tokenizer.from_str(json.dumps(doc, ensure_ascii=False)).to_str(pretty=True) + "\n"
+    assert tokenizer_json(vocab, 0, CleanSpec()) == whole

@@ -81,8 +81,8 @@ class Vocabulary:
 
     def visible(self, lang_index: int) -> list[Entry]:
         """Entries a sentence of this language can be encoded to (shared + its own)."""
-        entries = self.entries
-        return [entries[i] for i in self.visible_ids(lang_index)]
+        tag = self.tags[lang_index]
+        return [e for e in self.entries if e.lang in (SHARED, tag)]
 
 
 class EntryView(Sequence[Entry]):

@@ -41,8 +41,8 @@ from .sources import InputFile, read_blocks
 from .splits import split_thresholds
 from .subword import (SentenceText, SubwordCondition, build_subword_condition, model_path, tokenizer_path,
                       unigram_tokenizer_json)
-from .vocab import (CLASS_NAMES, TypeIndex, Vocabulary, build_vocabulary, index_types, quote_column, tokenizer_json,
-                    tsv_columns, vocab_tsv)
+from .vocab import (TypeIndex, Vocabulary, build_vocabulary, index_types, language_types_tsv, tokenizer_json,
+                    vocab_tsv)
 
 
 # Bytes of text per scan block.  Larger blocks repeat more of their chunks, so a worker looks
@@ -609,15 +609,7 @@ def _write_condition_shard(writer: ShardWriter, condition: str, stem: str, vocab
 
 
 def types_tsv(scan: LanguageScan, index: TypeIndex, lang_index: int) -> str:
-    """All token types of one language with their class and count per split, sorted by the
-    tie rule (train count descending, then code points; ``index`` ranks the surfaces)."""
-    counts = scan.split_counts
-    order = np.lexsort((index.ranks[lang_index], -counts[0]))
-    surfaces = scan.table.surfaces
-    columns = [quote_column([surfaces[i] for i in order.tolist()]),
-               [CLASS_NAMES[c] for c in index.classes[lang_index][order].tolist()],
-               *([str(c) for c in counts[split, order].tolist()] for split in range(3))]
-    return tsv_columns(["surface", "class", "count_train", "count_valid", "count_test"], columns)
+    return language_types_tsv(scan.table.surfaces, scan.split_counts, index, lang_index)
 
 
 def _input_report(counters: Counter) -> Counter:

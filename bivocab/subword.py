@@ -24,7 +24,7 @@ from .mix import smoothed_probabilities
 from .recipe import SPLITS, CleanSpec, ConditionSpec, Recipe, SubwordSpec
 from .scan import ragged_gather
 from .segment import NUMBER, PUNCT, SPECIAL, SYMBOL, WORD, segment
-from .vocab import SHARED, Entry, Vocabulary, special_tokens, tagged_token, tokenizer_json
+from .vocab import SHARED, Entry, EntryView, Vocabulary, special_tokens, tagged_token, tokenizer_json
 
 BOUNDARY = "\u2581"                   # sentencepiece's visible space, written before a word
 SPACE, BYTE = "space", "byte"         # piece classes beyond the token classes
@@ -388,19 +388,16 @@ def build_subword_condition(condition: ConditionSpec, recipe: Recipe, texts: Seq
         lengths_out.append(lengths)
         starts_out.append(starts)
 
-    entries: list[Entry] = []
-    zero = (0,) * len(tags)
-    for token, lang in specials:
-        entries.append(Entry(len(entries), token, token, lang, SPECIAL, zero))
-    for item in pieces:
-        i = len(entries)
-        token = item.surface if item.lang == SHARED else tagged_token(item.surface, item.lang)
-        entries.append(Entry(i, token, item.surface, item.lang, item.cls,
-                             tuple(int(c) for c in counts_per_lang[:, i])))
-    _check_unique(condition.name, entries)
+    counts = counts_per_lang.T.copy()
+    counts[:len(specials)] = 0          # a special's count stays 0, as in a word-level vocabulary
+    names = [token for token, _ in specials]
+    tokens = names + [item.surface if item.lang == SHARED else tagged_token(item.surface, item.lang) for item in pieces]
     identity = np.arange(n_entries, dtype=dtype)
-    vocab = Vocabulary(condition.name, tags, tuple(entries), unk_ids, eos_ids, pad_id,
-                       tuple(identity for _ in tags))
+    vocab = Vocabulary(condition.name, tags, tokens, names + [item.surface for item in pieces],
+                       [lang for _, lang in specials] + [item.lang for item in pieces],
+                       [SPECIAL] * len(specials) + [item.cls for item in pieces], counts,
+                       unk_ids, eos_ids, pad_id, tuple(identity for _ in tags))
+    _check_unique(condition.name, vocab.entries)
     record = {
         "units": condition.units, "engine": spec.engine, "engine_version": spm.__version__,
         "joint_model": joint,
@@ -431,7 +428,7 @@ def _encode_language(processor: spm.SentencePieceProcessor, text: SentenceText, 
     return load(ids_path, np.uint32), np.asarray(load(lengths_path, np.int64))
 
 
-def _check_unique(condition: str, entries: list[Entry]) -> None:
+def _check_unique(condition: str, entries: EntryView) -> None:
     seen: dict[str, Entry] = {}
     for e in entries:
         other = seen.setdefault(e.token, e)

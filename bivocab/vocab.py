@@ -12,11 +12,14 @@ from __future__ import annotations
 import csv
 import io
 import json
-import re
+from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass
-from typing import Callable
+from itertools import compress
+from typing import Callable, overload
 
 import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
 
 from .errors import BivocabError
 from .recipe import ConditionSpec, CleanSpec
@@ -41,29 +44,76 @@ class Entry:
 
 @dataclass(frozen=True)
 class Vocabulary:
+    """The entries of one condition as columns in id order (specials first; a special's surface
+    is its token), so that building and writing a vocabulary of 100,000 entries needs no
+    per-entry objects.  :attr:`entries` gives them as :class:`Entry` records on demand."""
+
     condition: str
     tags: tuple[str, ...]
-    entries: tuple[Entry, ...]
+    tokens: list[str]                   # exported strings, unique in the vocabulary
+    surfaces: list[str]
+    langs: list[str]                    # a language tag, or "*" for an entry shared by both
+    classes: list[str]
+    counts: np.ndarray                  # (entries, languages): training count per language (recipe order)
     unk_ids: tuple[int, ...]            # per language (the same id twice when shared)
     eos_ids: tuple[int, ...] | None     # per language, or None without an end-of-sentence token
     pad_id: int | None
     luts: tuple[np.ndarray, ...]        # per language: type id -> vocabulary id
 
     def __len__(self) -> int:
-        return len(self.entries)
+        return len(self.tokens)
+
+    @property
+    def entries(self) -> EntryView:
+        return EntryView(self)
 
     @property
     def special_count(self) -> int:
-        return sum(1 for e in self.entries if e.cls == SPECIAL)
+        return self.classes.count(SPECIAL)
 
     @property
     def dtype(self) -> np.dtype:
-        return np.dtype(np.uint16) if len(self.entries) <= 1 << 16 else np.dtype(np.uint32)
+        return np.dtype(np.uint16) if len(self) <= 1 << 16 else np.dtype(np.uint32)
+
+    def visible_ids(self, lang_index: int) -> list[int]:
+        """Ids a sentence of this language can be encoded to (shared entries + its own), ascending."""
+        return list(compress(range(len(self)), map({SHARED, self.tags[lang_index]}.__contains__, self.langs)))
 
     def visible(self, lang_index: int) -> list[Entry]:
         """Entries a sentence of this language can be encoded to (shared + its own)."""
         tag = self.tags[lang_index]
         return [e for e in self.entries if e.lang in (SHARED, tag)]
+
+
+class EntryView(Sequence[Entry]):
+    """A vocabulary's entries in id order, each made from the columns when it is read."""
+
+    def __init__(self, vocab: Vocabulary):
+        self._vocab = vocab
+
+    def __len__(self) -> int:
+        return len(self._vocab)
+
+    @overload
+    def __getitem__(self, index: int) -> Entry: ...
+
+    @overload
+    def __getitem__(self, index: slice) -> tuple[Entry, ...]: ...
+
+    def __getitem__(self, index: int | slice) -> Entry | tuple[Entry, ...]:
+        if isinstance(index, slice):
+            return tuple(self._make(index))
+        i = range(len(self))[index]     # a negative index counts from the end; IndexError past it
+        v = self._vocab
+        return Entry(i, v.tokens[i], v.surfaces[i], v.langs[i], v.classes[i], tuple(v.counts[i].tolist()))
+
+    def __iter__(self) -> Iterator[Entry]:
+        return self._make(slice(None))
+
+    def _make(self, pick: slice) -> Iterator[Entry]:
+        v = self._vocab
+        return map(Entry, range(len(v))[pick], v.tokens[pick], v.surfaces[pick], v.langs[pick], v.classes[pick],
+                   map(tuple, v.counts[pick].tolist()))
 
 
 def tagged_token(surface: str, tag: str) -> str:
@@ -127,18 +177,20 @@ class TypeIndex:
 
     classes: tuple[np.ndarray, ...]
     ranks: tuple[np.ndarray, ...]
-    by_rank: tuple[str, ...]        # rank -> surface
+    by_rank: np.ndarray             # rank -> surface (an object array, so that numpy can gather surfaces)
     class_by_rank: np.ndarray       # rank -> class index
 
 
 def index_types(surfaces: list[list[str]]) -> TypeIndex:
     """Classify and rank each language's types once (the costly per-type Python work)."""
     code = {name: i for i, name in enumerate(CLASS_NAMES)}
-    classes = tuple(np.fromiter((code[token_class(s)] for s in types), dtype=np.uint8, count=len(types))
+    classes = tuple(np.fromiter(map(code.__getitem__, map(token_class, types)), dtype=np.uint8, count=len(types))
                     for types in surfaces)
-    by_rank = tuple(sorted(set().union(*surfaces)))
-    rank = {s: i for i, s in enumerate(by_rank)}
-    ranks = tuple(np.fromiter((rank[s] for s in types), dtype=np.int64, count=len(types)) for types in surfaces)
+    ordered = sorted(set().union(*surfaces))
+    rank = dict(zip(ordered, range(len(ordered))))
+    ranks = tuple(np.fromiter(map(rank.__getitem__, types), dtype=np.int64, count=len(types)) for types in surfaces)
+    by_rank = np.empty(len(ordered), dtype=object)
+    by_rank[:] = ordered
     class_by_rank = np.zeros(len(by_rank), dtype=np.uint8)
     for c, r in zip(classes, ranks):
         class_by_rank[r] = c
@@ -197,29 +249,28 @@ def build_vocabulary(condition: ConditionSpec, tags: tuple[str, ...], surfaces: 
                 f"{len(specials)} special tokens")
         chosen = chosen[: spec.max_size - len(specials)]
 
-    ranks = (keys[chosen] // (n_lang + 1)).tolist()
-    entry_langs = (keys[chosen] % (n_lang + 1)).tolist()
-    entry_surfaces = [index.by_rank[r] for r in ranks]
-    lang_names = [SHARED, *tags]
-    langs = [lang_names[k] for k in entry_langs]
-    tokens = [s if k == 0 else tagged_token(s, lang_names[k]) for s, k in zip(entry_surfaces, entry_langs)]
+    chosen_keys = keys[chosen]
+    ranks, lang_codes = chosen_keys // (n_lang + 1), chosen_keys % (n_lang + 1)
     special_names = [name for name, _ in specials]
-    _check_unique(condition, special_names + tokens, [lang for _, lang in specials] + langs,
-                  special_names + entry_surfaces)
+    chosen_surfaces = index.by_rank[ranks]
+    entry_surfaces = special_names + chosen_surfaces.tolist()
+    # A tagged token is the surface plus a suffix (tagged_token); adding object arrays runs that
+    # concatenation in one numpy loop, and the empty suffix of a shared entry keeps the surface.
+    suffixes = np.array(["", *(tagged_token("", t) for t in tags)], dtype=object)
+    tokens = special_names + (chosen_surfaces + suffixes[lang_codes]).tolist()
+    langs = [lang for _, lang in specials] + np.array([SHARED, *tags], dtype=object)[lang_codes].tolist()
+    _check_unique(condition, tokens, langs, entry_surfaces)
+    classes = [SPECIAL] * len(specials) + np.array(CLASS_NAMES, dtype=object)[index.class_by_rank[ranks]].tolist()
+    entry_counts = np.zeros((len(tokens), n_lang), dtype=np.int64)
+    entry_counts[len(specials):] = counts[chosen]
 
-    zero = (0,) * n_lang
-    entries = [Entry(i, name, name, lang, SPECIAL, zero) for i, (name, lang) in enumerate(specials)]
     special_ids = {name: i for i, name in enumerate(special_names)}
-    entries += map(Entry, range(len(specials), len(specials) + len(chosen)), tokens, entry_surfaces, langs,
-                   [CLASS_NAMES[c] for c in index.class_by_rank[keys[chosen] // (n_lang + 1)].tolist()],
-                   map(tuple, counts[chosen].tolist()))
-
     unk_ids = tuple(special_ids["<unk>"] if spec.unknown == "shared" else special_ids[f"<unk:{t}>"] for t in tags)
     if spec.eos == "none":
         eos_ids = None
     else:
         eos_ids = tuple(special_ids["<eos>"] if spec.eos == "shared" else special_ids[f"<eos:{t}>"] for t in tags)
-    dtype = np.uint16 if len(entries) <= 1 << 16 else np.uint32
+    dtype = np.uint16 if len(tokens) <= 1 << 16 else np.uint32
     id_of_key = np.full(len(keys), -1, dtype=np.int64)
     id_of_key[chosen] = np.arange(len(specials), len(specials) + len(chosen))
     luts = []
@@ -228,7 +279,7 @@ def build_vocabulary(condition: ConditionSpec, tags: tuple[str, ...], surfaces: 
         ids = id_of_key[inverse[start:start + len(type_keys[li])]]
         start += len(type_keys[li])
         luts.append(np.where(ids < 0, unk_ids[li], ids).astype(dtype))
-    return Vocabulary(condition.name, tags, tuple(entries), unk_ids, eos_ids,
+    return Vocabulary(condition.name, tags, tokens, entry_surfaces, langs, classes, entry_counts, unk_ids, eos_ids,
                       special_ids.get("<pad>"), tuple(luts))
 
 
@@ -248,12 +299,31 @@ def _check_unique(condition: ConditionSpec, tokens: list[str], langs: list[str],
 def vocab_tsv(vocab: Vocabulary) -> str:
     """The vocab.tsv contract: ``id token surface lang class count count_<tag>...``."""
     header = ["id", "token", "surface", "lang", "class", "count"] + [f"count_{t}" for t in vocab.tags]
-    entries = vocab.entries
-    counts = [[str(c) for c in column] for column in zip(*(e.counts for e in entries))]
-    columns = [[str(e.id) for e in entries], quote_column([e.token for e in entries]),
-               quote_column([e.surface for e in entries]), quote_column([e.lang for e in entries]),
-               [e.cls for e in entries], [str(sum(e.counts)) for e in entries], *counts]
+    counts = vocab.counts
+    columns = [decimal_column(np.arange(len(vocab))), quote_column(vocab.tokens), quote_column(vocab.surfaces),
+               quote_column(vocab.langs), vocab.classes, decimal_column(counts.sum(axis=1)),
+               *(decimal_column(column) for column in counts.T)]
     return tsv_columns(header, columns)
+
+
+def language_types_tsv(surfaces: list[str], split_counts: np.ndarray, index: TypeIndex, lang_index: int) -> str:
+    """All token types of one language with their class and count per split (``split_counts``,
+    train/valid/test by type id), sorted by the tie rule: train count descending, then code
+    points (``index`` ranks the surfaces)."""
+    order = np.lexsort((index.ranks[lang_index], -split_counts[0]))
+    columns = [quote_column(list(map(surfaces.__getitem__, order.tolist()))),
+               np.array(CLASS_NAMES, dtype=object)[index.classes[lang_index][order]].tolist(),
+               *(decimal_column(split_counts[split, order]) for split in range(3))]
+    return tsv_columns(["surface", "class", "count_train", "count_valid", "count_test"], columns)
+
+
+def decimal_column(values: np.ndarray) -> list[str]:
+    """Each integer as ``str`` writes it; arrow's cast formats the whole column in one call.
+
+    >>> decimal_column(np.array([3, -1, 0, 12]))
+    ['3', '-1', '0', '12']
+    """
+    return pc.cast(pa.array(values), pa.string()).to_pylist()
 
 
 def tsv_text(header: list[str], rows: list[list[str]]) -> str:
@@ -267,7 +337,7 @@ def tsv_text(header: list[str], rows: list[list[str]]) -> str:
 
 
 # Characters that can make the csv module quote a field (delimiter, quote, line ends).
-_QUOTABLE = re.compile(r'[\t"\r\n]')
+_QUOTABLE = '\t"\r\n'
 
 
 def quote_column(values: list[str]) -> list[str]:
@@ -277,15 +347,40 @@ def quote_column(values: list[str]) -> list[str]:
     >>> quote_column(['Kai', 'a\\tb'])
     ['Kai', '"a\\tb"']
     """
+    return _rewrite_holding(values, _QUOTABLE, lambda value: tsv_text([value, ""], [])[:-2])
+
+
+# Joins a column for the character search; cleaned text never holds it (see tokenizer_doc's
+# normalizer), and the search still works, only slower, when a value does.
+_SEPARATOR = "\x7f"
+
+
+def _rewrite_holding(values: Iterable[str], chars: str, rewrite: Callable[[str], str]) -> list[str]:
+    """``values`` with ``rewrite`` applied to the few that hold one of ``chars`` (not the
+    separator), found by str.find in the joined column, which runs at memory speed."""
     out = list(values)
-    joined = "".join(out)
-    if not _QUOTABLE.search(joined):
+    joined = _SEPARATOR.join(out)
+    positions = []
+    for char in chars:
+        at = joined.find(char)
+        while at >= 0:
+            positions.append(at)
+            at = joined.find(char, at + 1)
+    if not positions:
         return out
-    # Find the few values holding such a character from match positions in the joined text.
-    ends = np.cumsum(np.fromiter(map(len, out), dtype=np.int64, count=len(out)))
-    positions = np.array([m.start() for m in _QUOTABLE.finditer(joined)], dtype=np.int64)
-    for i in np.unique(np.searchsorted(ends, positions, side="right")).tolist():
-        out[i] = tsv_text([out[i], ""], [])[:-2]
+    positions.sort()
+    if joined.count(_SEPARATOR) == len(out) - 1:
+        # No value holds the separator: the separators before a position count the values before it.
+        indices, index, start = [], 0, 0
+        for at in positions:
+            index += joined.count(_SEPARATOR, start, at)
+            start = at
+            indices.append(index)
+    else:
+        starts_of_next = np.cumsum(np.fromiter(map(len, out), dtype=np.int64, count=len(out)) + 1)
+        indices = np.searchsorted(starts_of_next, positions, side="right").tolist()
+    for i in dict.fromkeys(indices):
+        out[i] = rewrite(out[i])
     return out
 
 
@@ -302,7 +397,23 @@ def tokenizer_doc(vocab: Vocabulary, lang_index: int, clean: CleanSpec) -> dict:
     Its normalizer repeats our cleaning (whitespace, normal form, case), its pre-tokenizer is our
     segmentation regex, and its post-processor appends the end-of-sentence token.
     """
-    mapping = {e.surface if e.cls != SPECIAL else e.token: e.id for e in vocab.visible(lang_index)}
+    return _tokenizer_doc(vocab, lang_index, clean, dict(zip(*_word_level_vocab(vocab, lang_index))))
+
+
+def _word_level_vocab(vocab: Vocabulary, lang_index: int) -> tuple[list[str], list[int]]:
+    """The tokenizer vocabulary of one language in id order, as keys and ids: the surface (a
+    special's is its token) of each entry the language can use, and its id."""
+    ids = vocab.visible_ids(lang_index)
+    keys = list(map(vocab.surfaces.__getitem__, ids))
+    if len(set(keys)) < len(keys):
+        # As in a dict display, a repeated key keeps its first place but takes the last id;
+        # then the entries go back into id order.
+        mapping = dict(sorted(dict(zip(keys, ids)).items(), key=lambda kv: kv[1]))
+        keys, ids = list(mapping), list(mapping.values())
+    return keys, ids
+
+
+def _tokenizer_doc(vocab: Vocabulary, lang_index: int, clean: CleanSpec, mapping: dict[str, int]) -> dict:
     normalizers: list[dict] = [
         {"type": "Replace", "pattern": {"Regex": r"[\s\x00-\x08\x0e-\x1f\x7f-\x9f]+"}, "content": " "},
         {"type": "Strip", "strip_left": True, "strip_right": True},
@@ -314,7 +425,7 @@ def tokenizer_doc(vocab: Vocabulary, lang_index: int, clean: CleanSpec) -> dict:
     post = None
     if vocab.eos_ids is not None:
         eos_id = vocab.eos_ids[lang_index]
-        eos = vocab.entries[eos_id].token
+        eos = vocab.tokens[eos_id]
         post = {"type": "TemplateProcessing",
                 "single": [{"Sequence": {"id": "A", "type_id": 0}}, {"SpecialToken": {"id": eos, "type_id": 0}}],
                 "pair": [{"Sequence": {"id": "A", "type_id": 0}}, {"SpecialToken": {"id": eos, "type_id": 0}},
@@ -329,14 +440,15 @@ def tokenizer_doc(vocab: Vocabulary, lang_index: int, clean: CleanSpec) -> dict:
         "pre_tokenizer": pre_tokenizer_json(),
         "post_processor": post,
         "decoder": None,
-        "model": {"type": "WordLevel", "vocab": dict(sorted(mapping.items(), key=lambda kv: kv[1])),
-                  "unk_token": vocab.entries[vocab.unk_ids[lang_index]].token},
+        "model": {"type": "WordLevel", "vocab": mapping, "unk_token": vocab.tokens[vocab.unk_ids[lang_index]]},
     }
     return doc
 
 
 # Stands in for the vocabulary while the library writes the rest of the file.
 _VOCAB_PLACEHOLDER = "\x00bivocab-vocab\x00"
+# Characters that json.dumps(..., ensure_ascii=False) writes as an escape (json.encoder.ESCAPE).
+_JSON_ESCAPED = "".join(map(chr, range(0x20))) + '\\"'
 
 
 def tokenizer_json(vocab: Vocabulary, lang_index: int, clean: CleanSpec) -> str:
@@ -349,16 +461,13 @@ def tokenizer_json(vocab: Vocabulary, lang_index: int, clean: CleanSpec) -> str:
     """
     from tokenizers import Tokenizer
 
-    doc = tokenizer_doc(vocab, lang_index, clean)
-    mapping = doc["model"]["vocab"]
-    doc["model"]["vocab"] = {_VOCAB_PLACEHOLDER: 0}
+    doc = _tokenizer_doc(vocab, lang_index, clean, {_VOCAB_PLACEHOLDER: 0})
     skeleton = Tokenizer.from_str(json.dumps(doc, ensure_ascii=False)).to_str(pretty=True) + "\n"
     placeholder = json.dumps(_VOCAB_PLACEHOLDER) + ": 0"
     head, sep, tail = skeleton.partition(placeholder)
     if not sep or placeholder in tail:
         raise RuntimeError("tokenizers wrote the WordLevel vocabulary in an unexpected layout")
     indent = head[head.rfind("\n") + 1:]
-    # One encoder call for all lines: the item separator carries the line break and indent
-    # (a JSON string never holds a raw line break, so nothing else can look like one).
-    lines = json.dumps(mapping, ensure_ascii=False, separators=(",\n" + indent, ": "))[1:-1]
-    return head + lines + tail
+    keys, ids = _word_level_vocab(vocab, lang_index)
+    keys = _rewrite_holding(keys, _JSON_ESCAPED, lambda key: json.dumps(key, ensure_ascii=False)[1:-1])
+    return head + (",\n" + indent).join([f'"{key}": {i}' for key, i in zip(keys, ids)]) + tail

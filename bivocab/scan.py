@@ -21,6 +21,7 @@ import os
 import queue
 import time
 from collections import Counter, deque
+from itertools import repeat
 from dataclasses import dataclass
 from typing import Callable, Iterable, Iterator, TypeVar
 
@@ -28,12 +29,12 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from .clean import clean_block
+from .clean import clean_block, clean_block_bytes
 from .errors import BivocabError
 from .recipe import CleanSpec
 from .segment import segment
 from .sources import Block
-from .splits import assign_splits
+from .splits import assign_splits_utf8
 
 
 class WorkerError(BivocabError):
@@ -178,33 +179,54 @@ def release_tables() -> None:
 def ragged_gather(starts: np.ndarray, lengths: np.ndarray) -> np.ndarray:
     """Indices ``starts[i] + 0 .. lengths[i]-1`` for every i, concatenated (int64).
 
-    >>> ragged_gather(np.array([5, 0]), np.array([2, 3])).tolist()
+    >>> ragged_gather(np.array([5, 0, 9]), np.array([2, 3, 0])).tolist()
     [5, 6, 0, 1, 2]
     """
     lengths = np.asarray(lengths, dtype=np.int64)
+    starts = np.asarray(starts, dtype=np.int64)
+    if len(lengths) and not lengths.min():
+        starts, lengths = starts[lengths > 0], lengths[lengths > 0]
     total = int(lengths.sum())
     if total == 0:
         return np.zeros(0, dtype=np.int64)
-    ends = np.cumsum(lengths)
-    shift = np.asarray(starts, dtype=np.int64) - (ends - lengths)
-    return np.arange(total, dtype=np.int64) + np.repeat(shift, lengths)
+    # Steps of one inside a run, and a jump to the next run's start at each run's first index.
+    steps = np.ones(total, dtype=np.int64)
+    steps[0] = starts[0]
+    steps[np.cumsum(lengths[:-1])] = starts[1:] - starts[:-1] - lengths[:-1] + 1
+    return np.cumsum(steps, out=steps)
 
 
-def _chunk_array(data: bytes) -> tuple[pa.Array, np.ndarray]:
+def _chunk_array(data: bytes, separators: np.ndarray | None = None) -> tuple[pa.Array, np.ndarray]:
     """The space-separated chunks of LF-joined lines as an arrow string array (each chunk keeps
-    the one space or line end after it, turned into a space), and the chunk count per line."""
+    the one space or line end after it, turned into a space), and the chunk count per line.
+    ``separators``: the offsets of every space and LF in data, when already known."""
     raw = np.frombuffer(data, dtype=np.uint8)
+    if separators is None:
+        separators = np.flatnonzero((raw == 32) | (raw == 10))
     buffer = np.empty(len(raw) + 1, dtype=np.uint8)
     buffer[:-1] = raw
-    buffer[-1] = 10
-    separators = np.flatnonzero((buffer == 32) | (buffer == 10))
-    line_ends = np.flatnonzero(buffer[separators] == 10)
+    buffer[-1] = 32
+    line_ends = np.flatnonzero(raw[separators] == 10)
     buffer[separators] = 32
-    offsets = np.empty(len(separators) + 1, dtype=np.int64)
-    offsets[0] = 0
-    offsets[1:] = separators + 1
-    chunks = pa.LargeStringArray.from_buffers(len(separators), pa.py_buffer(offsets), pa.py_buffer(buffer))
-    return chunks, np.diff(line_ends, prepend=-1)
+    large = len(buffer) >= 1 << 31
+    offsets = np.empty(len(separators) + 2, dtype=np.int64 if large else np.int32)
+    offsets[0], offsets[1:-1], offsets[-1] = 0, separators + 1, len(buffer)
+    kind = pa.LargeStringArray if large else pa.StringArray
+    chunks = kind.from_buffers(len(offsets) - 1, pa.py_buffer(offsets), pa.py_buffer(buffer))
+    return chunks, np.diff(line_ends, prepend=-1, append=len(offsets) - 2)
+
+
+def _lines_of(block: Block, clean: CleanSpec, display: str) -> tuple[bytes, np.ndarray | None, str | None, np.ndarray,
+                                                                     Counter]:
+    """The cleaned block: its kept lines' UTF-8 (LF-joined), the offsets of its spaces and LFs
+    (None when not computed), its text when known, the lines' numbers, and the counters."""
+    fast = clean_block_bytes(block, clean)
+    if fast is not None:
+        return fast.data, fast.separators, fast.text, fast.line_numbers, fast.counters
+    cleaned = clean_block(block, clean, display)
+    text = "\n".join(cleaned.lines)
+    return (text.encode("utf-8"), None, text, np.asarray(cleaned.line_numbers, dtype=np.int64),
+            cleaned.counters)
 
 
 def scan_block(task: ScanTask) -> ScanResult:
@@ -213,21 +235,17 @@ def scan_block(task: ScanTask) -> ScanResult:
     table = _table(task)
     if len(table.chunks) > MAX_CHUNKS:
         table.forget_chunks()
-    cleaned = clean_block(task.block, task.clean, task.display)
-    lines = cleaned.lines
-    counters = cleaned.counters
+    data, separators, text, numbers, counters = _lines_of(task.block, task.clean, task.display)
     cleaned_at = time.perf_counter()
-    if not lines:
+    if not len(numbers):
         empty = np.zeros(0, dtype=np.int64)
         return ScanResult(task.block.file_index, task.language, os.getpid(), table.unreported(),
                           np.zeros(0, np.uint32), empty, np.zeros(0, np.uint8), empty, "", counters,
                           {"clean": cleaned_at - started}, len(task.block.data))
-    text = "\n".join(lines)
-    chunks, chunks_per_line = _chunk_array(text.encode("utf-8"))
+    chunks, chunks_per_line = _chunk_array(data, separators)
     encoded = pc.dictionary_encode(chunks)
     distinct = encoded.dictionary.to_pylist()
-    known = table.chunks.get
-    chunk_ids = np.array([known(c, -1) for c in distinct], dtype=np.int64)
+    chunk_ids = np.fromiter(map(table.chunks.get, distinct, repeat(-1)), dtype=np.int64, count=len(distinct))
     missing = np.flatnonzero(chunk_ids < 0)
     if len(missing):
         # In first-seen order, so that new types get worker ids in corpus order.
@@ -241,14 +259,19 @@ def scan_block(task: ScanTask) -> ScanResult:
         finally:
             if gc_was_enabled:
                 gc.enable()
-    occurrence = chunk_ids[encoded.indices.to_numpy(zero_copy_only=False)]
-    occurrence_lengths = table.lengths.data[occurrence]
-    tokens = table.flat.data[ragged_gather(table.starts.data[occurrence], occurrence_lengths)]
+    # The tokens of the block's distinct chunks, then of every occurrence (gathers from the
+    # small per-block arrays rather than from the worker's whole table).
+    distinct_lengths = table.lengths.data[chunk_ids]
+    distinct_tokens = table.flat.data[ragged_gather(table.starts.data[chunk_ids], distinct_lengths)]
+    distinct_starts = np.cumsum(distinct_lengths) - distinct_lengths
+    indices = encoded.indices.to_numpy(zero_copy_only=False)
+    occurrence_lengths = distinct_lengths[indices]
+    tokens = distinct_tokens[ragged_gather(distinct_starts[indices], occurrence_lengths)]
     line_starts = np.cumsum(chunks_per_line) - chunks_per_line
     lengths = np.add.reduceat(occurrence_lengths, line_starts)
-    numbers = np.asarray(cleaned.line_numbers, dtype=np.int64)
     segmented_at = time.perf_counter()
-    splits = assign_splits(lines, task.seed, task.thresholds)
+    lines = data.split(b"\n")
+    splits = assign_splits_utf8(lines, task.seed, task.thresholds)
 
     spec = task.clean
     keep = lengths >= spec.min_tokens
@@ -261,7 +284,9 @@ def scan_block(task: ScanTask) -> ScanResult:
         tokens = tokens[np.repeat(keep, lengths)]
         lengths, numbers, splits = lengths[keep], numbers[keep], splits[keep]
         if task.keep_text:
-            text = "\n".join(line for line, k in zip(lines, keep.tolist()) if k)
+            text = b"\n".join(line for line, k in zip(lines, keep.tolist()) if k).decode("utf-8")
+    if task.keep_text and text is None:
+        text = data.decode("utf-8")
     counters["sentences_kept"] += len(lengths)
     counters["tokens_kept"] += int(lengths.sum())
     done = time.perf_counter()

@@ -45,9 +45,18 @@ def assign_splits(texts: Iterable[str], seed: int, thresholds: tuple[int, int]) 
     >>> assign_splits(["a", "b"], 7, (0, 1 << 64)).tolist()
     [1, 1]
     """
+    return assign_splits_utf8([text.encode("utf-8") for text in texts], seed, thresholds)
+
+
+def assign_splits_utf8(texts: Iterable[bytes], seed: int, thresholds: tuple[int, int]) -> np.ndarray:
+    """:func:`assign_splits` of texts already encoded as UTF-8.
+
+    >>> assign_splits_utf8([b"a", b"b"], 7, (0, 1 << 64)).tolist()
+    [1, 1]
+    """
     key = seed.to_bytes(16, "little", signed=True)
     blake = hashlib.blake2b
-    digests = b"".join([blake(text.encode("utf-8"), digest_size=8, key=key).digest() for text in texts])
+    digests = b"".join([blake(text, digest_size=8, key=key).digest() for text in texts])
     hashes = np.frombuffer(digests, dtype="<u8")
     t0, t1 = thresholds
     # A threshold of 2**64 (an empty later split) does not fit in uint64: every hash is below it.

@@ -16,6 +16,7 @@ from collections import Counter
 from dataclasses import dataclass
 
 import numpy as np
+import pyarrow as pa
 
 from .errors import InputError
 from .recipe import CleanSpec
@@ -36,15 +37,29 @@ _ODD_SPACE_OR_CONTROL_RE = re.compile(
 
 # Byte-level form of _ODD_SPACE_OR_CONTROL_RE for the raw-bytes fast path: its ASCII members
 # are DEL and every byte below 0x20 except LF and CR, and the UTF-8 of its other members is
-# matched by one of these patterns, each looked for only when its first bytes occur (tests
+# matched by one of these patterns, each looked for only when its lead byte occurs (tests
 # check both against the regex over every code point).
 _ODD_NON_ASCII_UTF8 = tuple((re.compile(pattern), lead) for pattern, lead in (
-    (rb"\xc2[\x80-\xa0]", b"\xc2"), (rb"\xe1\x9a\x80", b"\xe1\x9a"),
-    (rb"\xe2\x80[\x80-\x8a\xa8\xa9\xaf]", b"\xe2\x80"), (rb"\xe2\x81\x9f", b"\xe2\x81"),
-    (rb"\xe3\x80\x80", b"\xe3\x80")))
+    (rb"\xc2[\x80-\xa0]", b"\xc2"), (rb"\xe1\x9a\x80", b"\xe1"),
+    (rb"\xe2(?:\x80[\x80-\x8a\xa8\xa9\xaf]|\x81\x9f)", b"\xe2"), (rb"\xe3\x80\x80", b"\xe3")))
 # Text whose UTF-8 has no byte at or above this is already in the normal form: for NFC every
 # character below U+0300 (lead bytes up to 0xCB), for NFKC ASCII (tests check both claims).
 _NORMAL_BELOW_BYTE = {"NFC": 0xCC, "NFKC": 0x80}
+
+
+def _is_utf8(data: bytes) -> bool:
+    """Whether Python's strict UTF-8 decoder accepts data; arrow checks it without building a str.
+
+    >>> _is_utf8("Fähre".encode()), _is_utf8(b"F\\xe4hre")
+    (True, False)
+    """
+    large = len(data) >= 1 << 31
+    kind, offsets = (pa.LargeStringArray, np.int64) if large else (pa.StringArray, np.int32)
+    try:
+        kind.from_buffers(1, pa.py_buffer(np.array([0, len(data)], dtype=offsets)), pa.py_buffer(data)).validate(full=True)
+    except pa.ArrowInvalid:
+        return False
+    return True
 
 
 def _only_printable(text: str) -> bool:
@@ -183,19 +198,25 @@ def clean_block_bytes(block: Block, spec: CleanSpec) -> CleanBytes | None:
     if not data.isascii():
         if any(lead in data and odd.search(data) for odd, lead in _ODD_NON_ASCII_UTF8):
             return None
-        try:
-            text = data.decode("utf-8")
-        except UnicodeDecodeError:
+        if spec.normal_form != "none" and raw.max() >= _NORMAL_BELOW_BYTE[spec.normal_form]:
+            try:
+                text = data.decode("utf-8")
+            except UnicodeDecodeError:
+                return None
+            if not unicodedata.is_normalized(spec.normal_form, text):
+                return None
+        elif not _is_utf8(data):
             return None
-        if (spec.normal_form != "none" and raw.max() >= _NORMAL_BELOW_BYTE[spec.normal_form]
-                and not unicodedata.is_normalized(spec.normal_form, text)):
-            return None
-    separators = np.flatnonzero((raw == 32) | (raw == 10))
-    is_space = raw[separators] == 32
-    line_breaks = len(separators) - int(np.count_nonzero(is_space))
-    if (line_breaks != block.line_count - 1
-            or np.count_nonzero(raw < 32) != line_breaks + data.count(b"\r")):
+    separators = np.flatnonzero(raw <= 32)
+    values = raw[separators]
+    if b"\r" in data:  # a CR inside a line is left alone (it is no separator of chunks)
+        separators, values = separators[values != 13], values[values != 13]
+    is_space = values == 32
+    line_breaks = int(np.count_nonzero(values == 10))
+    if line_breaks + np.count_nonzero(is_space) != len(values):
         return None     # a control character or TAB: LF and CR are the only bytes below 0x20 left alone
+    if line_breaks != block.line_count - 1:
+        return None
     bounds = np.empty(len(separators) + 2, dtype=np.int64)     # separators with the block's ends
     bounds[0], bounds[-1], bounds[1:-1] = -1, len(raw), separators
     empty = np.flatnonzero(np.diff(bounds) == 1)                # an empty chunk ends at bounds[i + 1]

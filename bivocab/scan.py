@@ -93,7 +93,7 @@ class _Growing:
         self.data = np.zeros(1024, dtype=dtype)
         self.size = 0
 
-    def extend(self, values: list[int]) -> None:
+    def extend(self, values: np.ndarray) -> None:
         end = self.size + len(values)
         if end > len(self.data):
             grown = np.zeros(max(end, 2 * len(self.data)), dtype=self.data.dtype)
@@ -119,33 +119,38 @@ class ChunkTable:
         self.lengths = _Growing(np.int64)
         self.flat = _Growing(np.uint32)
 
-    def add(self, chunks: list[str], kinds: list[int]) -> list[int]:
-        """Segment chunks not seen before (each ends with one space; kind 1 is a plain word,
-        2 a word and a mark, 0 anything else); return their chunk ids."""
-        types, surfaces, known = self.types, self.surfaces, self.chunks
-        ids, starts, lengths, flat = [], [], [], []
-        position = self.flat.size
-        for chunk, kind in zip(chunks, kinds):
-            if kind == 1:
-                tokens = [chunk[:-1]]
-            elif kind == 2:
-                tokens = [chunk[:-2], chunk[-2]]
-            else:
-                tokens = segment(chunk)
-            ids.append(known.setdefault(chunk, len(known)))
-            starts.append(position)
-            lengths.append(len(tokens))
-            for token in tokens:
-                tid = types.get(token)
-                if tid is None:
-                    tid = types[token] = len(surfaces)
-                    surfaces.append(token)
-                flat.append(tid)
-            position += len(tokens)
-        self.starts.extend(starts)
+    def add(self, chunks: pa.Array) -> np.ndarray:
+        """Segment chunks not seen before (distinct, each ending with one space); return their
+        chunk ids.  New types are numbered in the order of their first token, chunk by chunk."""
+        texts = chunks.to_pylist()
+        first = len(self.chunks)
+        self.chunks.update(zip(texts, range(first, first + len(texts))))
+        # Shapes that need no regex: a plain word (one token), a word and one mark (two).
+        plain = pc.match_substring_regex(chunks, _PLAIN_WORD).to_numpy(zero_copy_only=False)
+        marked = pc.match_substring_regex(chunks, _WORD_AND_MARK).to_numpy(zero_copy_only=False)
+        other = np.flatnonzero(~(plain | marked))
+        segmented = [segment(texts[i]) for i in other.tolist()]
+        lengths = np.where(marked, 2, 1)
+        lengths[other] = [len(tokens) for tokens in segmented]
+        starts = np.cumsum(lengths) - lengths
+        tokens = np.empty(int(lengths.sum()), dtype=object)
+        tokens[starts[plain]] = pc.utf8_slice_codeunits(chunks.filter(plain), 0, -1).to_pylist()
+        with_mark = chunks.filter(marked)
+        tokens[starts[marked]] = pc.utf8_slice_codeunits(with_mark, 0, -2).to_pylist()
+        tokens[starts[marked] + 1] = pc.utf8_slice_codeunits(with_mark, -2, -1).to_pylist()
+        tokens[ragged_gather(starts[other], lengths[other])] = [t for ts in segmented for t in ts]
+        types = self.types
+        ids = np.fromiter(map(types.get, tokens, repeat(-1)), dtype=np.int64, count=len(tokens))
+        unknown = np.flatnonzero(ids < 0)
+        if len(unknown):
+            new = list(dict.fromkeys(tokens[unknown].tolist()))
+            types.update(zip(new, range(len(self.surfaces), len(self.surfaces) + len(new))))
+            self.surfaces += new
+            ids[unknown] = np.fromiter(map(types.__getitem__, tokens[unknown]), dtype=np.int64, count=len(unknown))
+        self.starts.extend(self.flat.size + starts)
         self.lengths.extend(lengths)
-        self.flat.extend(flat)
-        return ids
+        self.flat.extend(ids)
+        return np.arange(first, first + len(texts), dtype=np.int64)
 
     def unreported(self) -> list[str]:
         """Surfaces of the types added since the last call, in type id order."""
@@ -249,13 +254,10 @@ def scan_block(task: ScanTask) -> ScanResult:
     missing = np.flatnonzero(chunk_ids < 0)
     if len(missing):
         # In first-seen order, so that new types get worker ids in corpus order.
-        new = encoded.dictionary.take(pa.array(missing))
-        kinds = (pc.match_substring_regex(new, _PLAIN_WORD).to_numpy(zero_copy_only=False).astype(np.int8)
-                 + 2 * pc.match_substring_regex(new, _WORD_AND_MARK).to_numpy(zero_copy_only=False))
         gc_was_enabled = gc.isenabled()
-        gc.disable()  # many small lists and no cycles: the collector would only add time
+        gc.disable()  # many small objects and no cycles: the collector would only add time
         try:
-            chunk_ids[missing] = table.add([distinct[i] for i in missing.tolist()], kinds.tolist())
+            chunk_ids[missing] = table.add(encoded.dictionary.take(pa.array(missing)))
         finally:
             if gc_was_enabled:
                 gc.enable()

@@ -6,6 +6,7 @@ repeated sentences), and appending sentences to a corpus never moves an old sent
 
 from __future__ import annotations
 
+import functools
 import hashlib
 from typing import Iterable
 
@@ -54,9 +55,8 @@ def assign_splits_utf8(texts: Iterable[bytes], seed: int, thresholds: tuple[int,
     >>> assign_splits_utf8([b"a", b"b"], 7, (0, 1 << 64)).tolist()
     [1, 1]
     """
-    key = seed.to_bytes(16, "little", signed=True)
-    blake = hashlib.blake2b
-    digests = b"".join([blake(text, digest_size=8, key=key).digest() for text in texts])
+    keyed = functools.partial(hashlib.blake2b, digest_size=8, key=seed.to_bytes(16, "little", signed=True))
+    digests = b"".join(map(hashlib.blake2b.digest, map(keyed, texts)))
     hashes = np.frombuffer(digests, dtype="<u8")
     t0, t1 = thresholds
     # A threshold of 2**64 (an empty later split) does not fit in uint64: every hash is below it.

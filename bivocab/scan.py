@@ -46,12 +46,14 @@ class WorkerError(BivocabError):
 T = TypeVar("T")
 R = TypeVar("R")
 
-# Chunks that need no regex: letters of the Latin-1 and Latin Extended-A blocks (all of them
-# ALetter, each its own grapheme cluster), optionally followed by one closing punctuation
-# mark; segment() would return the letters as one word and the mark as one token.
+# Chunks that need no regex: ASCII punctuation or symbols, then a word of letters of the Latin-1
+# and Latin Extended-A blocks (all of them ALetter, each its own grapheme cluster) or a number of
+# ASCII digits joined across "." or "," between digits, then ASCII punctuation or symbols.
+# segment() returns the word or number as one token and every mark as one token.
 _LETTERS = "A-Za-z\u00c0-\u00d6\u00d8-\u00f6\u00f8-\u017f"
-_PLAIN_WORD = f"^[{_LETTERS}]+ $"
-_WORD_AND_MARK = f"^[{_LETTERS}]+[,.;:!?] $"
+_MARKS = r"!-/:-@\[-`{-~"
+_SIMPLE_CHUNK = (f"^(?P<before>[{_MARKS}]*)(?P<core>[{_LETTERS}]+|[0-9]+(?:[.,][0-9]+)*)"
+                 f"(?P<after>[{_MARKS}]*) $")
 
 # A worker forgets its chunks (not its types) beyond this many, so memory stays bounded on
 # corpora with very many distinct chunks; forgotten chunks are segmented again when met.
@@ -125,19 +127,23 @@ class ChunkTable:
         texts = chunks.to_pylist()
         first = len(self.chunks)
         self.chunks.update(zip(texts, range(first, first + len(texts))))
-        # Shapes that need no regex: a plain word (one token), a word and one mark (two).
-        plain = pc.match_substring_regex(chunks, _PLAIN_WORD).to_numpy(zero_copy_only=False)
-        marked = pc.match_substring_regex(chunks, _WORD_AND_MARK).to_numpy(zero_copy_only=False)
-        other = np.flatnonzero(~(plain | marked))
+        parts = pc.extract_regex(chunks, _SIMPLE_CHUNK)     # null where the chunk has another shape
+        simple = parts.is_valid().to_numpy(zero_copy_only=False)
+        other = np.flatnonzero(~simple)
         segmented = [segment(texts[i]) for i in other.tolist()]
-        lengths = np.where(marked, 2, 1)
+        parts = parts.filter(simple)
+        before, core, after = (parts.field(name) for name in ("before", "core", "after"))
+        marks_before = pc.binary_length(before).to_numpy().astype(np.int64)   # ASCII: bytes are characters
+        marks_after = pc.binary_length(after).to_numpy().astype(np.int64)
+        lengths = np.empty(len(texts), dtype=np.int64)
+        lengths[simple] = marks_before + 1 + marks_after
         lengths[other] = [len(tokens) for tokens in segmented]
         starts = np.cumsum(lengths) - lengths
         tokens = np.empty(int(lengths.sum()), dtype=object)
-        tokens[starts[plain]] = pc.utf8_slice_codeunits(chunks.filter(plain), 0, -1).to_pylist()
-        with_mark = chunks.filter(marked)
-        tokens[starts[marked]] = pc.utf8_slice_codeunits(with_mark, 0, -2).to_pylist()
-        tokens[starts[marked] + 1] = pc.utf8_slice_codeunits(with_mark, -2, -1).to_pylist()
+        core_at = starts[simple] + marks_before
+        tokens[ragged_gather(starts[simple], marks_before)] = list("".join(before.to_pylist()))
+        tokens[core_at] = core.to_pylist()
+        tokens[ragged_gather(core_at + 1, marks_after)] = list("".join(after.to_pylist()))
         tokens[ragged_gather(starts[other], lengths[other])] = [t for ts in segmented for t in ts]
         types = self.types
         ids = np.fromiter(map(types.get, tokens, repeat(-1)), dtype=np.int64, count=len(tokens))

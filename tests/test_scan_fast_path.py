@@ -6,6 +6,7 @@ from __future__ import annotations
 import unicodedata
 
 import numpy as np
+import pyarrow as pa
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
@@ -15,7 +16,8 @@ from bivocab.clean import (_NORMAL_BELOW_BYTE, _ODD_NON_ASCII_UTF8, _ODD_SPACE_O
                            clean_block_bytes)
 from bivocab.errors import InputError
 from bivocab.recipe import CleanSpec, SplitSpec
-from bivocab.scan import ScanTask, ragged_gather, scan_block
+from bivocab.scan import ChunkTable, ScanTask, ragged_gather, scan_block
+from bivocab.segment import segment
 from bivocab.sources import Block
 from bivocab.splits import assign_splits, assign_splits_utf8, split_thresholds
 
@@ -141,3 +143,21 @@ def test_ragged_gather_concatenates_the_ranges(pairs: list[tuple[int, int]]) -> 
     starts = np.array([s for s, _ in pairs], dtype=np.int64)
     lengths = np.array([n for _, n in pairs], dtype=np.int64)
     assert ragged_gather(starts, lengths).tolist() == [s + k for s, n in pairs for k in range(n)]
+
+
+# Chunks near the shapes that need no regex: ASCII marks around Latin words and numbers, and
+# what must leave those shapes (digits next to letters, apostrophes and combining marks inside,
+# letters beyond Latin Extended-A, separators at a number's end).
+_NEAR_SIMPLE = st.text(st.sampled_from(list("!\"#$%&'()*+,-./:;<=>?@[\\]^_`{|}~") + list("aZßÿſƀ09") +
+                                       ["\u0301", "’", "Ω", "\u00ad", "\r"]), min_size=1, max_size=7)
+
+
+@settings(max_examples=400, deadline=None)
+@given(st.lists(_NEAR_SIMPLE, min_size=1, max_size=30, unique=True))
+def test_new_chunks_get_the_tokens_of_segment(chunks: list[str]) -> None:
+    table = ChunkTable()
+    ids = table.add(pa.array([chunk + " " for chunk in chunks], pa.string()))
+    starts, lengths, flat = table.starts.data, table.lengths.data, table.flat.data
+    got = [[table.surfaces[t] for t in flat[starts[i]:starts[i] + lengths[i]].tolist()] for i in ids.tolist()]
+    assert got == [segment(chunk + " ") for chunk in chunks]
+    assert table.surfaces == list(dict.fromkeys(t for chunk in chunks for t in segment(chunk + " ")))

@@ -62,6 +62,36 @@ def _is_utf8(data: bytes) -> bool:
     return True
 
 
+def _valid_in_normal_form(data: bytes, raw: np.ndarray, separators: np.ndarray, form: str) -> bool:
+    """Whether data is valid UTF-8 and its text in the normal form (``NFC``, ``NFKC`` or
+    ``none``); ``raw``: its bytes as numpy, ``separators``: the offsets of its spaces and line
+    breaks.  No composition or reordering crosses a space or a line break, so when few
+    characters are at or above the bound of the form, only their space-separated chunks need a
+    look.
+
+    >>> text = "Cafe\u0301 au lait".encode()
+    >>> _valid_in_normal_form(text, np.frombuffer(text, np.uint8), np.array([6, 9]), "NFC")
+    False
+    """
+    if form == "none":
+        return _is_utf8(data)
+    high = np.flatnonzero(raw >= _NORMAL_BELOW_BYTE[form])
+    if len(high) > len(raw) >> 8:   # many chunks to look at (a Python step each): decode it all at once
+        try:
+            text = data.decode("utf-8")
+        except UnicodeDecodeError:
+            return False
+        return unicodedata.is_normalized(form, text)
+    if not _is_utf8(data):
+        return False
+    chunk_of_high = np.searchsorted(separators, high)
+    chunks = chunk_of_high[np.diff(chunk_of_high, prepend=-1) != 0]
+    ends = np.append(separators, len(raw))[chunks]
+    starts = np.append(0, separators + 1)[chunks]
+    return unicodedata.is_normalized(form, " ".join(data[start:end].decode("utf-8")
+                                                    for start, end in zip(starts.tolist(), ends.tolist())))
+
+
 def _only_printable(text: str) -> bool:
     """True when the LF-separated text holds no control character and no separator other than
     the ASCII space (``str.isprintable``: categories C* and Z* except U+0020 are not printable),
@@ -79,7 +109,6 @@ class CleanBytes:
     """The kept lines of a block that cleaning leaves unchanged (empty lines aside)."""
 
     data: bytes                 # the kept lines' UTF-8, LF-joined
-    text: str | None            # the same, decoded, when the check needed it (else decode data)
     line_numbers: np.ndarray    # int64 1-based line of each kept line in the input file
     separators: np.ndarray      # int64 offsets of every space and LF in data
     counters: Counter
@@ -194,19 +223,6 @@ def clean_block_bytes(block: Block, spec: CleanSpec) -> CleanBytes | None:
     if spec.lowercase or not block.line_count or b"\x7f" in data:
         return None
     raw = np.frombuffer(data, dtype=np.uint8)
-    text = None
-    if not data.isascii():
-        if any(lead in data and odd.search(data) for odd, lead in _ODD_NON_ASCII_UTF8):
-            return None
-        if spec.normal_form != "none" and raw.max() >= _NORMAL_BELOW_BYTE[spec.normal_form]:
-            try:
-                text = data.decode("utf-8")
-            except UnicodeDecodeError:
-                return None
-            if not unicodedata.is_normalized(spec.normal_form, text):
-                return None
-        elif not _is_utf8(data):
-            return None
     separators = np.flatnonzero(raw <= 32)
     values = raw[separators]
     if b"\r" in data:  # a CR inside a line is left alone (it is no separator of chunks)
@@ -216,6 +232,9 @@ def clean_block_bytes(block: Block, spec: CleanSpec) -> CleanBytes | None:
     if line_breaks + np.count_nonzero(is_space) != len(values):
         return None     # a control character or TAB: LF and CR are the only bytes below 0x20 left alone
     if line_breaks != block.line_count - 1:
+        return None
+    if not data.isascii() and (any(lead in data and odd.search(data) for odd, lead in _ODD_NON_ASCII_UTF8)
+                               or not _valid_in_normal_form(data, raw, separators, spec.normal_form)):
         return None
     bounds = np.empty(len(separators) + 2, dtype=np.int64)     # separators with the block's ends
     bounds[0], bounds[-1], bounds[1:-1] = -1, len(raw), separators
@@ -244,12 +263,11 @@ def clean_block_bytes(block: Block, spec: CleanSpec) -> CleanBytes | None:
         counters["empty_lines_dropped"] += block.line_count - int(kept.sum())
         numbers = numbers[kept]
         if not len(numbers):
-            return CleanBytes(b"", "", numbers, np.zeros(0, dtype=np.int64), counters)
+            return CleanBytes(b"", numbers, np.zeros(0, dtype=np.int64), counters)
         data = b"\n".join(line for line in data.split(b"\n") if line)
-        text = None
         raw = np.frombuffer(data, dtype=np.uint8)
         separators = np.flatnonzero((raw == 32) | (raw == 10))
-    return CleanBytes(data, text, numbers, separators, counters)
+    return CleanBytes(data, numbers, separators, counters)
 
 
 def clean_block(block: Block, spec: CleanSpec, display: str) -> CleanLines:

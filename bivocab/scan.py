@@ -233,7 +233,7 @@ def _lines_of(block: Block, clean: CleanSpec, display: str) -> tuple[bytes, np.n
     (None when not computed), its text when known, the lines' numbers, and the counters."""
     fast = clean_block_bytes(block, clean)
     if fast is not None:
-        return fast.data, fast.separators, fast.text, fast.line_numbers, fast.counters
+        return fast.data, fast.separators, None, fast.line_numbers, fast.counters
     cleaned = clean_block(block, clean, display)
     text = "\n".join(cleaned.lines)
     return (text.encode("utf-8"), None, text, np.asarray(cleaned.line_numbers, dtype=np.int64),

@@ -13,7 +13,7 @@ from hypothesis import strategies as st
 
 import bivocab.scan as scan_module
 from bivocab.clean import (_NORMAL_BELOW_BYTE, _ODD_NON_ASCII_UTF8, _ODD_SPACE_OR_CONTROL_RE, _is_utf8,
-                           clean_block_bytes)
+                           _valid_in_normal_form, clean_block_bytes)
 from bivocab.errors import InputError
 from bivocab.recipe import CleanSpec, SplitSpec
 from bivocab.scan import ChunkTable, ScanTask, ragged_gather, scan_block
@@ -161,3 +161,24 @@ def test_new_chunks_get_the_tokens_of_segment(chunks: list[str]) -> None:
     got = [[table.surfaces[t] for t in flat[starts[i]:starts[i] + lengths[i]].tolist()] for i in ids.tolist()]
     assert got == [segment(chunk + " ") for chunk in chunks]
     assert table.surfaces == list(dict.fromkeys(t for chunk in chunks for t in segment(chunk + " ")))
+
+
+# Mostly plain words, with now and then a character that may compose or reorder: combining marks
+# of several classes, precomposed letters, Hangul jamo (starters that compose with each other),
+# compatibility characters, composition exclusions.
+_FORM_TEXT = st.lists(st.sampled_from(["ferry", "Fähre", "e", "a", "\u0301", "\u0327", "\u0323", "\u0308", "é",
+                                       "\u1100", "\u1161", "\u11a8", "\uac00", "ﬁ", "①", "\u0958", "\u212b",
+                                       "„", "“", " ", " ", " ", " ", "\n"]), max_size=40).map("".join)
+
+
+@settings(max_examples=400, deadline=None)
+@given(_FORM_TEXT, st.sampled_from(["NFC", "NFKC"]))
+def test_normal_form_is_checked_on_the_chunks_that_may_change(text: str, form: str) -> None:
+    data = text.encode("utf-8")
+    raw = np.frombuffer(data, dtype=np.uint8)
+    separators = np.flatnonzero((raw == 32) | (raw == 10))
+    assert _valid_in_normal_form(data, raw, separators, form) == unicodedata.is_normalized(form, text)
+    long = data + b" plain" * (len(data) + 1)    # few characters above the bound: chunk by chunk
+    raw = np.frombuffer(long, dtype=np.uint8)
+    separators = np.flatnonzero((raw == 32) | (raw == 10))
+    assert _valid_in_normal_form(long, raw, separators, form) == unicodedata.is_normalized(form, long.decode())

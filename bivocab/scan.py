@@ -21,8 +21,8 @@ import os
 import queue
 import time
 from collections import Counter, deque
-from itertools import repeat
 from dataclasses import dataclass
+from itertools import repeat
 from typing import Callable, Iterable, Iterator, TypeVar
 
 import numpy as np

@@ -23,18 +23,19 @@ import queue
 import time
 from collections import Counter, deque
 from dataclasses import dataclass
+from itertools import repeat
 from typing import Callable, Iterable, Iterator, TypeVar
 
 import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from .clean import clean_block
+from .clean import clean_block, clean_block_bytes
 from .errors import BivocabError
 from .recipe import CleanSpec
 from .segment import segment
 from .sources import Block
-from .splits import assign_splits
+from .splits import assign_splits_utf8
 
 
 class WorkerError(BivocabError):
@@ -46,12 +47,14 @@ class WorkerError(BivocabError):
 T = TypeVar("T")
 R = TypeVar("R")
 
-# Chunks that need no regex: letters of the Latin-1 and Latin Extended-A blocks (all of them
-# ALetter, each its own grapheme cluster), optionally followed by one closing punctuation
-# mark; segment() would return the letters as one word and the mark as one token.
+# Chunks that need no regex: ASCII punctuation or symbols, then a word of letters of the Latin-1
+# and Latin Extended-A blocks (all of them ALetter, each its own grapheme cluster) or a number of
+# ASCII digits joined across "." or "," between digits, then ASCII punctuation or symbols.
+# segment() returns the word or number as one token and every mark as one token.
 _LETTERS = "A-Za-z\u00c0-\u00d6\u00d8-\u00f6\u00f8-\u017f"
-_PLAIN_WORD = f"^[{_LETTERS}]+ $"
-_WORD_AND_MARK = f"^[{_LETTERS}]+[,.;:!?] $"
+_MARKS = r"!-/:-@\[-`{-~"
+_SIMPLE_CHUNK = (f"^(?P<before>[{_MARKS}]*)(?P<core>[{_LETTERS}]+|[0-9]+(?:[.,][0-9]+)*)"
+                 f"(?P<after>[{_MARKS}]*) $")
 
 # A worker forgets its chunks (not its types) beyond this many, so memory stays bounded on
 # corpora with very many distinct chunks; forgotten chunks are segmented again when met.
@@ -93,7 +96,7 @@ class _Growing:
         self.data = np.zeros(1024, dtype=dtype)
         self.size = 0
 
-    def extend(self, values: list[int]) -> None:
+    def extend(self, values: np.ndarray) -> None:
         end = self.size + len(values)
         if end > len(self.data):
             grown = np.zeros(max(end, 2 * len(self.data)), dtype=self.data.dtype)
@@ -119,33 +122,42 @@ class ChunkTable:
         self.lengths = _Growing(np.int64)
         self.flat = _Growing(np.uint32)
 
-    def add(self, chunks: list[str], kinds: list[int]) -> list[int]:
-        """Segment chunks not seen before (each ends with one space; kind 1 is a plain word,
-        2 a word and a mark, 0 anything else); return their chunk ids."""
-        types, surfaces, known = self.types, self.surfaces, self.chunks
-        ids, starts, lengths, flat = [], [], [], []
-        position = self.flat.size
-        for chunk, kind in zip(chunks, kinds):
-            if kind == 1:
-                tokens = [chunk[:-1]]
-            elif kind == 2:
-                tokens = [chunk[:-2], chunk[-2]]
-            else:
-                tokens = segment(chunk)
-            ids.append(known.setdefault(chunk, len(known)))
-            starts.append(position)
-            lengths.append(len(tokens))
-            for token in tokens:
-                tid = types.get(token)
-                if tid is None:
-                    tid = types[token] = len(surfaces)
-                    surfaces.append(token)
-                flat.append(tid)
-            position += len(tokens)
-        self.starts.extend(starts)
+    def add(self, chunks: pa.Array) -> np.ndarray:
+        """Segment chunks not seen before (distinct, each ending with one space); return their
+        chunk ids.  New types are numbered in the order of their first token, chunk by chunk."""
+        texts = chunks.to_pylist()
+        first = len(self.chunks)
+        self.chunks.update(zip(texts, range(first, first + len(texts))))
+        parts = pc.extract_regex(chunks, _SIMPLE_CHUNK)     # null where the chunk has another shape
+        simple = parts.is_valid().to_numpy(zero_copy_only=False)
+        other = np.flatnonzero(~simple)
+        segmented = [segment(texts[i]) for i in other.tolist()]
+        parts = parts.filter(simple)
+        before, core, after = (parts.field(name) for name in ("before", "core", "after"))
+        marks_before = pc.binary_length(before).to_numpy().astype(np.int64)   # ASCII: bytes are characters
+        marks_after = pc.binary_length(after).to_numpy().astype(np.int64)
+        lengths = np.empty(len(texts), dtype=np.int64)
+        lengths[simple] = marks_before + 1 + marks_after
+        lengths[other] = [len(tokens) for tokens in segmented]
+        starts = np.cumsum(lengths) - lengths
+        tokens = np.empty(int(lengths.sum()), dtype=object)
+        core_at = starts[simple] + marks_before
+        tokens[ragged_gather(starts[simple], marks_before)] = list("".join(before.to_pylist()))
+        tokens[core_at] = core.to_pylist()
+        tokens[ragged_gather(core_at + 1, marks_after)] = list("".join(after.to_pylist()))
+        tokens[ragged_gather(starts[other], lengths[other])] = [t for ts in segmented for t in ts]
+        types = self.types
+        ids = np.fromiter(map(types.get, tokens, repeat(-1)), dtype=np.int64, count=len(tokens))
+        unknown = np.flatnonzero(ids < 0)
+        if len(unknown):
+            new = list(dict.fromkeys(tokens[unknown].tolist()))
+            types.update(zip(new, range(len(self.surfaces), len(self.surfaces) + len(new))))
+            self.surfaces += new
+            ids[unknown] = np.fromiter(map(types.__getitem__, tokens[unknown]), dtype=np.int64, count=len(unknown))
+        self.starts.extend(self.flat.size + starts)
         self.lengths.extend(lengths)
-        self.flat.extend(flat)
-        return ids
+        self.flat.extend(ids)
+        return np.arange(first, first + len(texts), dtype=np.int64)
 
     def unreported(self) -> list[str]:
         """Surfaces of the types added since the last call, in type id order."""
@@ -179,33 +191,54 @@ def release_tables() -> None:
 def ragged_gather(starts: np.ndarray, lengths: np.ndarray) -> np.ndarray:
     """Indices ``starts[i] + 0 .. lengths[i]-1`` for every i, concatenated (int64).
 
-    >>> ragged_gather(np.array([5, 0]), np.array([2, 3])).tolist()
+    >>> ragged_gather(np.array([5, 0, 9]), np.array([2, 3, 0])).tolist()
     [5, 6, 0, 1, 2]
     """
     lengths = np.asarray(lengths, dtype=np.int64)
+    starts = np.asarray(starts, dtype=np.int64)
+    if len(lengths) and not lengths.min():
+        starts, lengths = starts[lengths > 0], lengths[lengths > 0]
     total = int(lengths.sum())
     if total == 0:
         return np.zeros(0, dtype=np.int64)
-    ends = np.cumsum(lengths)
-    shift = np.asarray(starts, dtype=np.int64) - (ends - lengths)
-    return np.arange(total, dtype=np.int64) + np.repeat(shift, lengths)
+    # Steps of one inside a run, and a jump to the next run's start at each run's first index.
+    steps = np.ones(total, dtype=np.int64)
+    steps[0] = starts[0]
+    steps[np.cumsum(lengths[:-1])] = starts[1:] - starts[:-1] - lengths[:-1] + 1
+    return np.cumsum(steps, out=steps)
 
 
-def _chunk_array(data: bytes) -> tuple[pa.Array, np.ndarray]:
+def _chunk_array(data: bytes, separators: np.ndarray | None = None) -> tuple[pa.Array, np.ndarray]:
     """The space-separated chunks of LF-joined lines as an arrow string array (each chunk keeps
-    the one space or line end after it, turned into a space), and the chunk count per line."""
+    the one space or line end after it, turned into a space), and the chunk count per line.
+    ``separators``: the offsets of every space and LF in data, when already known."""
     raw = np.frombuffer(data, dtype=np.uint8)
+    if separators is None:
+        separators = np.flatnonzero((raw == 32) | (raw == 10))
     buffer = np.empty(len(raw) + 1, dtype=np.uint8)
     buffer[:-1] = raw
-    buffer[-1] = 10
-    separators = np.flatnonzero((buffer == 32) | (buffer == 10))
-    line_ends = np.flatnonzero(buffer[separators] == 10)
+    buffer[-1] = 32
+    line_ends = np.flatnonzero(raw[separators] == 10)
     buffer[separators] = 32
-    offsets = np.empty(len(separators) + 1, dtype=np.int64)
-    offsets[0] = 0
-    offsets[1:] = separators + 1
-    chunks = pa.LargeStringArray.from_buffers(len(separators), pa.py_buffer(offsets), pa.py_buffer(buffer))
-    return chunks, np.diff(line_ends, prepend=-1)
+    large = len(buffer) >= 1 << 31
+    offsets = np.empty(len(separators) + 2, dtype=np.int64 if large else np.int32)
+    offsets[0], offsets[1:-1], offsets[-1] = 0, separators + 1, len(buffer)
+    kind = pa.LargeStringArray if large else pa.StringArray
+    chunks = kind.from_buffers(len(offsets) - 1, pa.py_buffer(offsets), pa.py_buffer(buffer))
+    return chunks, np.diff(line_ends, prepend=-1, append=len(offsets) - 2)
+
+
+def _lines_of(block: Block, clean: CleanSpec, display: str) -> tuple[bytes, np.ndarray | None, str | None, np.ndarray,
+                                                                     Counter]:
+    """The cleaned block: its kept lines' UTF-8 (LF-joined), the offsets of its spaces and LFs
+    (None when not computed), its text when known, the lines' numbers, and the counters."""
+    fast = clean_block_bytes(block, clean)
+    if fast is not None:
+        return fast.data, fast.separators, None, fast.line_numbers, fast.counters
+    cleaned = clean_block(block, clean, display)
+    text = "\n".join(cleaned.lines)
+    return (text.encode("utf-8"), None, text, np.asarray(cleaned.line_numbers, dtype=np.int64),
+            cleaned.counters)
 
 
 def scan_block(task: ScanTask) -> ScanResult:
@@ -214,42 +247,40 @@ def scan_block(task: ScanTask) -> ScanResult:
     table = _table(task)
     if len(table.chunks) > MAX_CHUNKS:
         table.forget_chunks()
-    cleaned = clean_block(task.block, task.clean, task.display)
-    lines = cleaned.lines
-    counters = cleaned.counters
+    data, separators, text, numbers, counters = _lines_of(task.block, task.clean, task.display)
     cleaned_at = time.perf_counter()
-    if not lines:
+    if not len(numbers):
         empty = np.zeros(0, dtype=np.int64)
         return ScanResult(task.block.file_index, task.language, os.getpid(), table.unreported(),
                           np.zeros(0, np.uint32), empty, np.zeros(0, np.uint8), empty, "", counters,
                           {"clean": cleaned_at - started}, len(task.block.data))
-    text = "\n".join(lines)
-    chunks, chunks_per_line = _chunk_array(text.encode("utf-8"))
+    chunks, chunks_per_line = _chunk_array(data, separators)
     encoded = pc.dictionary_encode(chunks)
     distinct = encoded.dictionary.to_pylist()
-    known = table.chunks.get
-    chunk_ids = np.array([known(c, -1) for c in distinct], dtype=np.int64)
+    chunk_ids = np.fromiter(map(table.chunks.get, distinct, repeat(-1)), dtype=np.int64, count=len(distinct))
     missing = np.flatnonzero(chunk_ids < 0)
     if len(missing):
         # In first-seen order, so that new types get worker ids in corpus order.
-        new = encoded.dictionary.take(pa.array(missing))
-        kinds = (pc.match_substring_regex(new, _PLAIN_WORD).to_numpy(zero_copy_only=False).astype(np.int8)
-                 + 2 * pc.match_substring_regex(new, _WORD_AND_MARK).to_numpy(zero_copy_only=False))
         gc_was_enabled = gc.isenabled()
-        gc.disable()  # many small lists and no cycles: the collector would only add time
+        gc.disable()  # many small objects and no cycles: the collector would only add time
         try:
-            chunk_ids[missing] = table.add([distinct[i] for i in missing.tolist()], kinds.tolist())
+            chunk_ids[missing] = table.add(encoded.dictionary.take(pa.array(missing)))
         finally:
             if gc_was_enabled:
                 gc.enable()
-    occurrence = chunk_ids[encoded.indices.to_numpy(zero_copy_only=False)]
-    occurrence_lengths = table.lengths.data[occurrence]
-    tokens = table.flat.data[ragged_gather(table.starts.data[occurrence], occurrence_lengths)]
+    # The tokens of the block's distinct chunks, then of every occurrence (gathers from the
+    # small per-block arrays rather than from the worker's whole table).
+    distinct_lengths = table.lengths.data[chunk_ids]
+    distinct_tokens = table.flat.data[ragged_gather(table.starts.data[chunk_ids], distinct_lengths)]
+    distinct_starts = np.cumsum(distinct_lengths) - distinct_lengths
+    indices = encoded.indices.to_numpy(zero_copy_only=False)
+    occurrence_lengths = distinct_lengths[indices]
+    tokens = distinct_tokens[ragged_gather(distinct_starts[indices], occurrence_lengths)]
     line_starts = np.cumsum(chunks_per_line) - chunks_per_line
     lengths = np.add.reduceat(occurrence_lengths, line_starts)
-    numbers = np.asarray(cleaned.line_numbers, dtype=np.int64)
     segmented_at = time.perf_counter()
-    splits = assign_splits(lines, task.seed, task.thresholds)
+    lines = data.split(b"\n")
+    splits = assign_splits_utf8(lines, task.seed, task.thresholds)
 
     spec = task.clean
     keep = lengths >= spec.min_tokens
@@ -262,7 +293,9 @@ def scan_block(task: ScanTask) -> ScanResult:
         tokens = tokens[np.repeat(keep, lengths)]
         lengths, numbers, splits = lengths[keep], numbers[keep], splits[keep]
         if task.keep_text:
-            text = "\n".join(line for line, k in zip(lines, keep.tolist()) if k)
+            text = b"\n".join(line for line, k in zip(lines, keep.tolist()) if k).decode("utf-8")
+    if task.keep_text and text is None:
+        text = data.decode("utf-8")
     counters["sentences_kept"] += len(lengths)
     counters["tokens_kept"] += int(lengths.sum())
     done = time.perf_counter()

@@ -6,6 +6,7 @@ repeated sentences), and appending sentences to a corpus never moves an old sent
 
 from __future__ import annotations
 
+import functools
 import hashlib
 from typing import Iterable
 
@@ -45,9 +46,17 @@ def assign_splits(texts: Iterable[str], seed: int, thresholds: tuple[int, int]) 
     >>> assign_splits(["a", "b"], 7, (0, 1 << 64)).tolist()
     [1, 1]
     """
-    key = seed.to_bytes(16, "little", signed=True)
-    blake = hashlib.blake2b
-    digests = b"".join([blake(text.encode("utf-8"), digest_size=8, key=key).digest() for text in texts])
+    return assign_splits_utf8([text.encode("utf-8") for text in texts], seed, thresholds)
+
+
+def assign_splits_utf8(texts: Iterable[bytes], seed: int, thresholds: tuple[int, int]) -> np.ndarray:
+    """:func:`assign_splits` of texts already encoded as UTF-8.
+
+    >>> assign_splits_utf8([b"a", b"b"], 7, (0, 1 << 64)).tolist()
+    [1, 1]
+    """
+    keyed = functools.partial(hashlib.blake2b, digest_size=8, key=seed.to_bytes(16, "little", signed=True))
+    digests = b"".join(map(hashlib.blake2b.digest, map(keyed, texts)))
     hashes = np.frombuffer(digests, dtype="<u8")
     t0, t1 = thresholds
     # A threshold of 2**64 (an empty later split) does not fit in uint64: every hash is below it.

@@ -7,6 +7,8 @@ from __future__ import annotations
 import hashlib
 import importlib
 import re
+import subprocess
+import sys
 import unicodedata
 from pathlib import Path
 
@@ -233,3 +235,18 @@ def test_printable_shortcut_never_hides_a_character_that_cleaning_replaces() -> 
     assert missed == []
     assert not _only_printable("a\u00a0b") and _only_printable("Fähre\nnach Kellhaven")
     assert unicodedata.category("\u00a0") == "Zs"
+
+
+def test_the_program_exits_with_the_command_exit_code_and_its_output_flushed(tmp_path: Path) -> None:
+    # `bivocab` ends the process without the interpreter's teardown (cli.run): the exit code
+    # and everything printed must survive that.
+    recipe = _corpus(tmp_path, sentences=40)
+    ok = subprocess.run([sys.executable, "-m", "bivocab", "build", str(recipe), "--out", str(tmp_path / "out"),
+                         "--jobs", "2"], capture_output=True, text=True)
+    assert ok.returncode == 0, ok.stderr
+    assert "train" in ok.stdout and ok.stdout.endswith("\n")
+    bad = subprocess.run([sys.executable, "-m", "bivocab", "build", str(tmp_path / "missing.toml"), "--out",
+                          str(tmp_path / "out2")], capture_output=True, text=True)
+    assert bad.returncode == 2 and bad.stderr.startswith("error: ") and bad.stderr.count("\n") == 1
+    usage = subprocess.run([sys.executable, "-m", "bivocab", "build"], capture_output=True, text=True)
+    assert usage.returncode == 2 and "Missing argument" in usage.stderr

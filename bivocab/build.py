@@ -174,8 +174,8 @@ def _build_locked(recipe: Recipe, out: Path, jobs: int, force: bool, progress: P
 
         meter = progress if isinstance(progress, BuildMeter) else BuildMeter(on_stage=progress)
         meter.stage_hooks.insert(0, lambda stage: checkpoint(f"stage:{stage}"))
-        with background_digests(jobs > 1):
-            result = _build_into(recipe, out, work, jobs, meter, journal)
+        with background_digests(jobs > 1), contextlib.ExitStack() as background:
+            result = _build_into(recipe, out, work, jobs, meter, journal, background)
         meter.begin("finish")   # stale files, build.json, directory syncs
         _remove_stale(out, stale, result.manifest)
         for directory in {(out / f["path"]).parent for f in result.manifest["files"]}:
@@ -305,7 +305,8 @@ def _without_cyclic_gc(fn: Callable[..., BuildResult]) -> Callable[..., BuildRes
 
 @_without_cyclic_gc
 def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMeter,
-                journal: ShardJournal) -> BuildResult:
+                journal: ShardJournal, background: contextlib.ExitStack) -> BuildResult:
+    """The build's stages; threads it starts are entered into ``background`` (joined by the caller)."""
     tags = recipe.tags
     files = input_files(recipe)
     if jobs > 1:
@@ -357,6 +358,18 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
         empty = next(s.tag for s in scans if s.sentences == 0)
         raise BivocabError(f"{recipe.path}: language '{empty}' has no sentences after cleaning")
 
+    # Each split's mixed order, shard boundaries and bucket files depend on the scan alone: with
+    # more than one core they are prepared by a thread of their own while the vocabularies are built.
+    starts = [np.concatenate(([0], np.cumsum(a["lengths"])[:-1])).astype(np.int64) if len(a["lengths"])
+              else np.zeros(0, np.int64) for a in arrays]
+    prepare = functools.partial(_prepare_split, recipe=recipe, arrays=arrays, work=work,
+                                token_paths=[w.paths["tokens"] for w in writers], starts=starts)
+    if jobs > 1:
+        preparing = background.enter_context(_threads(1, "bivocab-split-prep"))
+        prepared = [preparing.submit(prepare, si).result for si in range(len(SPLITS))]
+    else:
+        prepared = [functools.partial(prepare, si) for si in range(len(SPLITS))]
+
     surfaces = [scan.table.surfaces for scan in scans]
     subwords: dict[str, SubwordCondition] = {}
     subword_conditions = [cond for cond in recipe.conditions if cond.units != "word"]
@@ -387,8 +400,6 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
     stats = {c.name: {s: [0, 0, [0] * len(tags), [0] * len(tags)] for s in SPLITS} for c in recipe.conditions}
     mixing: dict[str, dict] = {}
     shard_writer = ShardWriter(out, recipe.shards, tags, [f.display for f in files])
-    starts = [np.concatenate(([0], np.cumsum(a["lengths"])[:-1])).astype(np.int64) if len(a["lengths"])
-              else np.zeros(0, np.int64) for a in arrays]
     # Shards are written by ``jobs`` threads (the gathers, look-ups, writes and hashes are numpy,
     # hashlib and file calls that release the GIL), each shard journaled by its thread once its
     # files are in place; statistics are added in shard order, so nothing that is written
@@ -399,17 +410,11 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
         vocab_paths = threads.enter_context(_threads(1, "bivocab-vocab-files")).submit(vocab_files.write) \
             if jobs > 1 else None
         for si, split in enumerate(SPLITS):
-            rows = [np.flatnonzero(np.asarray(a["splits"]) == si) for a in arrays]
-            order = mix_split(si, rows, recipe.mix, recipe.seed, [a["lengths"] for a in arrays])
+            order, shard_list, buckets = prepared[si]()
             if order.sampling is not None:
                 mixing[split] = order.sampling
             for cond in recipe.conditions:
                 shard_paths[cond.name][split] = []
-            shard_list = list(_shard_members(order, arrays, recipe.shards.max_tokens))
-            buckets = ShardBuckets(work, split, order.langs, order.rows,
-                                   np.repeat(np.arange(len(shard_list)), [len(m) for m in shard_list]),
-                                   [w.paths["tokens"] for w in writers], [a["lengths"] for a in arrays], starts,
-                                   pool)
             pending = []
             for shard_index, members in enumerate(shard_list):
                 stem = shard_stem(split, shard_index)
@@ -469,44 +474,57 @@ def _threads(count: int, name: str) -> Iterator[ThreadPoolExecutor]:
         pool.shutdown(wait=True, cancel_futures=failed)
 
 
+def _prepare_split(si: int, recipe: Recipe, arrays: list[dict[str, np.ndarray]], work: Path,
+                   token_paths: list[Path], starts: list[np.ndarray]) -> tuple[SplitOrder, list[np.ndarray],
+                                                                              ShardBuckets]:
+    """Split ``si``'s mixed order, its shards' members (positions in that order) and its bucket files."""
+    rows = [np.flatnonzero(np.asarray(a["splits"]) == si) for a in arrays]
+    order = mix_split(si, rows, recipe.mix, recipe.seed, [a["lengths"] for a in arrays])
+    shard_list = list(_shard_members(order, arrays, recipe.shards.max_tokens))
+    buckets = ShardBuckets(work, SPLITS[si], order.langs, order.rows,
+                           np.repeat(np.arange(len(shard_list)), [len(m) for m in shard_list]),
+                           token_paths, [a["lengths"] for a in arrays], starts)
+    return order, shard_list, buckets
+
+
 class VocabFiles:
     """The vocabulary files of a build: per condition vocab.tsv, the tokenizer files (or the
-    subword models), and types/<tag>.tsv per language."""
+    subword models), and types/<tag>.tsv per language, from only what those files are made of."""
 
     def __init__(self, out: Path, recipe: Recipe, vocabs: list[Vocabulary], subwords: dict[str, SubwordCondition],
                  scans: list[LanguageScan], type_index: TypeIndex) -> None:
-        self.out, self.recipe, self.vocabs, self.subwords = out, recipe, vocabs, subwords
-        self.scans, self.type_index = scans, type_index
+        self.out, self.tags, self.clean, self.vocabs = out, recipe.tags, recipe.clean, vocabs
+        self.conditions = [(cond.name, cond.units) for cond in recipe.conditions]
+        self.models = {name: sub.models for name, sub in subwords.items()}
+        self.types = [(scan.table.surfaces, scan.split_counts) for scan in scans]
+        self.type_index = type_index
 
     def write(self, advance: Callable[..., None] = lambda amount: None) -> list[str]:
         """Write every file (``advance(1)`` after each condition); return their paths."""
-        out, recipe, tags = self.out, self.recipe, self.recipe.tags
+        out, tags = self.out, self.tags
         written = []
-        for cond, vocab in zip(recipe.conditions, self.vocabs):
-            path = f"{cond.name}/vocab.tsv"
-            atomic_write_text(out / path, vocab_tsv(vocab))
+
+        def write_text(path: str, make: Callable[[], str]) -> None:
+            atomic_write_text(out / path, make())
             written.append(path)
-            if cond.name in self.subwords:
-                for li, (tag, model) in enumerate(zip(tags, self.subwords[cond.name].models)):
-                    path = model_path(cond.name, tag)
+
+        for (name, units), vocab in zip(self.conditions, self.vocabs):
+            write_text(f"{name}/vocab.tsv", lambda: vocab_tsv(vocab))
+            if name in self.models:
+                for li, (tag, model) in enumerate(zip(tags, self.models[name])):
+                    path = model_path(name, tag)
                     with atomic_open(out / path) as handle:
                         handle.write(model)
                     written.append(path)
-                    if cond.units == "unigram":
-                        path = tokenizer_path(cond.name, tag)
-                        atomic_write_text(out / path, unigram_tokenizer_json(model, vocab, li, recipe.clean))
-                        written.append(path)
-                advance(1)
-                continue
-            for li, tag in enumerate(tags):
-                path = f"{cond.name}/tokenizer.{tag}.json"
-                atomic_write_text(out / path, tokenizer_json(vocab, li, recipe.clean))
-                written.append(path)
+                    if units == "unigram":
+                        write_text(tokenizer_path(name, tag),
+                                   lambda: unigram_tokenizer_json(model, vocab, li, self.clean))
+            else:
+                for li, tag in enumerate(tags):
+                    write_text(f"{name}/tokenizer.{tag}.json", lambda: tokenizer_json(vocab, li, self.clean))
             advance(1)
-        for li, scan in enumerate(self.scans):
-            path = f"types/{scan.tag}.tsv"
-            atomic_write_text(out / path, types_tsv(scan, self.type_index, li))
-            written.append(path)
+        for li, (tag, (surfaces, counts)) in enumerate(zip(tags, self.types)):
+            write_text(f"types/{tag}.tsv", lambda: language_types_tsv(surfaces, counts, self.type_index, li))
         return written
 
 
@@ -606,10 +624,6 @@ def _write_condition_shard(writer: ShardWriter, condition: str, stem: str, vocab
     stat[0] += n
     stat[1] += int(sum(len(t) for _, _, t in gathered))
     return writer.write(f"{condition}/{stem}", tokens, offsets, langs.astype(np.uint8), provenance)
-
-
-def types_tsv(scan: LanguageScan, index: TypeIndex, lang_index: int) -> str:
-    return language_types_tsv(scan.table.surfaces, scan.split_counts, index, lang_index)
 
 
 def _input_report(counters: Counter) -> Counter:

@@ -354,7 +354,9 @@ def _context() -> multiprocessing.context.BaseContext:
     """Workers come from a fork server: cheap to start, and never a fork of a parent whose
     library thread pools (pyarrow, tokenizers) are already running."""
     ctx = multiprocessing.get_context("forkserver")
-    ctx.set_forkserver_preload(["bivocab.scan"])
+    # pyarrow imports pandas (when installed) on its first conversion of an array to numpy or
+    # Python objects, about 0.3 s: loaded once by the server, every worker inherits it.
+    ctx.set_forkserver_preload(["bivocab.scan", "pandas"])
     return ctx
 
 

@@ -5,7 +5,6 @@ from __future__ import annotations
 
 import json
 import pickle
-import types
 
 import numpy as np
 import pytest
@@ -13,11 +12,10 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from tokenizers import Tokenizer
 
-from bivocab.build import types_tsv
 from bivocab.recipe import POLICIES, CleanSpec, ConditionSpec, VocabSpec
 from bivocab.segment import SPECIAL, token_class
-from bivocab.vocab import (SHARED, build_vocabulary, decimal_column, index_types, quote_column, tokenizer_doc,
-                           tokenizer_json, tsv_text, vocab_tsv)
+from bivocab.vocab import (SHARED, build_vocabulary, decimal_column, index_types, language_types_tsv, quote_column,
+                           tokenizer_doc, tokenizer_json, tsv_text, vocab_tsv)
 
 TAGS = ("en", "de")
 # Letters, digits, punctuation and the characters that make a TSV field quoted or a JSON string
@@ -86,12 +84,11 @@ def test_a_pickled_vocabulary_writes_the_same_table(vocab):
 def test_types_table_is_the_csv_module_writing_types_in_tie_rule_order(surfaces, data):
     split_counts = np.array([data.draw(st.lists(st.integers(0, 3), min_size=len(surfaces), max_size=len(surfaces)))
                              for _ in range(3)], dtype=np.int64).reshape(3, len(surfaces))
-    scan = types.SimpleNamespace(table=types.SimpleNamespace(surfaces=surfaces), split_counts=split_counts)
     # Reference: the tie rule of DESIGN.md section 6 as a Python sort key (str order is code point order).
     order = sorted(range(len(surfaces)), key=lambda i: (-split_counts[0, i], surfaces[i]))
     rows = [[surfaces[i], token_class(surfaces[i]), *(str(c) for c in split_counts[:, i])] for i in order]
     expected = tsv_text(["surface", "class", "count_train", "count_valid", "count_test"], rows)
-    assert types_tsv(scan, index_types([surfaces]), 0) == expected
+    assert language_types_tsv(surfaces, split_counts, index_types([surfaces]), 0) == expected
 
 
 @pytest.mark.parametrize("values", [["a", "b\x7fc", 'd"', "\x7f"], ["\x7f\t", "x", "y\n"], ['"'] * 5])

@@ -33,7 +33,7 @@ import pyarrow.compute as pc
 from .clean import clean_block, clean_block_bytes
 from .errors import BivocabError
 from .recipe import CleanSpec
-from .segment import segment
+from .segment import LATIN_LETTERS, segment
 from .sources import Block
 from .splits import assign_splits_utf8
 
@@ -51,9 +51,8 @@ R = TypeVar("R")
 # and Latin Extended-A blocks (all of them ALetter, each its own grapheme cluster) or a number of
 # ASCII digits joined across "." or "," between digits, then ASCII punctuation or symbols.
 # segment() returns the word or number as one token and every mark as one token.
-_LETTERS = "A-Za-z\u00c0-\u00d6\u00d8-\u00f6\u00f8-\u017f"
 _MARKS = r"!-/:-@\[-`{-~"
-_SIMPLE_CHUNK = (f"^(?P<before>[{_MARKS}]*)(?P<core>[{_LETTERS}]+|[0-9]+(?:[.,][0-9]+)*)"
+_SIMPLE_CHUNK = (f"^(?P<before>[{_MARKS}]*)(?P<core>[{LATIN_LETTERS}]+|[0-9]+(?:[.,][0-9]+)*)"
                  f"(?P<after>[{_MARKS}]*) $")
 
 # A worker forgets its chunks (not its types) beyond this many, so memory stays bounded on

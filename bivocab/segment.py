@@ -49,6 +49,11 @@ TOKEN_PATTERN: str = (
     + r"|(?!\s)\X"
 )
 
+# Letters of the Latin-1 and Latin Extended-A blocks, as a character-class body that RE2
+# (pyarrow), Oniguruma and ``regex`` read alike: every one is a letter (category L*) in every
+# Unicode version, an ALetter of its own grapheme cluster; vectorised fast paths use it.
+LATIN_LETTERS = "A-Za-z\u00c0-\u00d6\u00d8-\u00f6\u00f8-\u017f"
+
 _TOKEN_RE = regex.compile(TOKEN_PATTERN, regex.V1)
 _LETTER_RE = regex.compile(r"\p{L}")
 

@@ -23,7 +23,7 @@ import pyarrow.compute as pc
 
 from .errors import BivocabError
 from .recipe import ConditionSpec, CleanSpec
-from .segment import NUMBER, PUNCT, SPECIAL, SYMBOL, WORD, pre_tokenizer_json, token_class
+from .segment import LATIN_LETTERS, NUMBER, PUNCT, SPECIAL, SYMBOL, WORD, pre_tokenizer_json, token_class
 
 SHARED = "*"
 
@@ -181,11 +181,21 @@ class TypeIndex:
     class_by_rank: np.ndarray       # rank -> class index
 
 
+def _classify(types: list[str]) -> np.ndarray:
+    """:func:`token_class` of every type, as an index into CLASS_NAMES: a type holding a Latin
+    letter is a word (one vectorised match for most of them), the others are asked one by one."""
+    code = {name: i for i, name in enumerate(CLASS_NAMES)}
+    classes = np.full(len(types), code[WORD], dtype=np.uint8)
+    latin = pc.match_substring_regex(pa.array(types, pa.string()), f"[{LATIN_LETTERS}]")
+    others = np.flatnonzero(~latin.to_numpy(zero_copy_only=False)) if len(types) else np.zeros(0, np.int64)
+    classes[others] = np.fromiter((code[token_class(types[i])] for i in others.tolist()), dtype=np.uint8,
+                                  count=len(others))
+    return classes
+
+
 def index_types(surfaces: list[list[str]]) -> TypeIndex:
     """Classify and rank each language's types once (the costly per-type Python work)."""
-    code = {name: i for i, name in enumerate(CLASS_NAMES)}
-    classes = tuple(np.fromiter(map(code.__getitem__, map(token_class, types)), dtype=np.uint8, count=len(types))
-                    for types in surfaces)
+    classes = tuple(_classify(types) for types in surfaces)
     ordered = sorted(set().union(*surfaces))
     rank = dict(zip(ordered, range(len(ordered))))
     ranks = tuple(np.fromiter(map(rank.__getitem__, types), dtype=np.int64, count=len(types)) for types in surfaces)

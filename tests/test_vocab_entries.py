@@ -114,3 +114,13 @@ def test_a_surface_spelled_like_a_special_token_keeps_the_dict_rule_in_the_token
     # Reference: the tokenizers library (PyPI) writing the whole document.
     whole = Tokenizer.from_str(json.dumps(doc, ensure_ascii=False)).to_str(pretty=True) + "\n"
     assert tokenizer_json(vocab, 0, CleanSpec()) == whole
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.lists(st.text(min_size=1, max_size=4), max_size=30))
+def test_vectorised_classes_equal_token_class(types_):
+    # The Latin-letter fast path (RE2 through pyarrow) must agree with token_class, whose
+    # definition rests on the Unicode General Category (Python's unicodedata) and \p{L}.
+    from bivocab.vocab import CLASS_NAMES, _classify
+
+    assert [CLASS_NAMES[c] for c in _classify(types_)] == [token_class(t) for t in types_]

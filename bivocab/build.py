@@ -27,9 +27,9 @@ from . import __version__
 from .errors import BivocabError, OutputError
 from .hygiene import prepare_hygiene
 from .manifest import (CONTROL_FILES, INCOMPLETE, LOCK, MANIFEST, WORK, atomic_open, atomic_write_text,
-                       background_digests, build_lock, canonical_json, check_inputs_unchanged, checkpoint, environment,
-                       file_record, fsync_dir, read_manifest, remove_temp_files, sha256_file,
-                       start_hashing_inputs, write_error)
+                       background_digests, build_lock, canonical_json, check_inputs_unchanged, checkpoint,
+                       deferred_syncs, environment, file_record, fsync_dir, read_manifest, remove_temp_files,
+                       sha256_file, start_hashing_inputs, sync_files, write_error)
 from .mix import SplitOrder, mix_split
 from .recipe import SPLITS, Recipe, load_recipe
 from .gather import ShardBuckets
@@ -175,10 +175,14 @@ def _build_locked(recipe: Recipe, out: Path, jobs: int, force: bool, progress: P
 
         meter = progress if isinstance(progress, BuildMeter) else BuildMeter(on_stage=progress)
         meter.stage_hooks.insert(0, lambda stage: checkpoint(f"stage:{stage}"))
-        with background_digests(jobs > 1), contextlib.ExitStack() as background:
+        with background_digests(jobs > 1), deferred_syncs(), contextlib.ExitStack() as background:
             result = _build_into(recipe, out, work, jobs, meter, journal, background)
-        meter.begin("finish")   # stale files, build.json, directory syncs
+        meter.begin("finish")   # stale files, file and directory syncs, build.json
         _remove_stale(out, stale, result.manifest)
+        # Output files were renamed into place without waiting for the disk; they all reach it
+        # here, before build.json vouches for them (a shard the journal lists is hash-checked
+        # before --resume reuses it, so the journal needs no synced shard either).
+        sync_files(out / f["path"] for f in result.manifest["files"])
         for directory in {(out / f["path"]).parent for f in result.manifest["files"]}:
             fsync_dir(directory)
         checkpoint("manifest")

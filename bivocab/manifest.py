@@ -166,10 +166,10 @@ def note_content(path: Path, content: Callable[[], str]) -> None:
 
 @contextlib.contextmanager
 def atomic_open(path: Path, mode: str = "wb") -> Iterator[IO[Any]]:
-    """Write to a temporary name in the same directory, fsync, then rename into place.
-    On any error the temporary file is removed and ``path`` is left untouched; an OSError
-    becomes an :class:`OutputError` naming ``path``.  The sha256 of the bytes written is kept
-    for :func:`file_record`."""
+    """Write to a temporary name in the same directory, fsync (unless within
+    :func:`deferred_syncs`), then rename into place.  On any error the temporary file is removed
+    and ``path`` is left untouched; an OSError becomes an :class:`OutputError` naming ``path``.
+    The sha256 of the bytes written is kept for :func:`file_record`."""
     tmp = temp_name(path)
     key = os.path.abspath(path)
     _WRITTEN.pop(key, None)
@@ -180,7 +180,8 @@ def atomic_open(path: Path, mode: str = "wb") -> Iterator[IO[Any]]:
             yield hashing
             handle.flush()
             checkpoint(f"write:{path}")
-            os.fsync(handle.fileno())
+            if not _syncs_deferred:
+                os.fsync(handle.fileno())
         os.replace(tmp, path)
         _WRITTEN[key] = _WrittenFile(hashing.digest.hexdigest(), hashing.size, _stat_key(path))
     except BaseException as exc:
@@ -189,6 +190,34 @@ def atomic_open(path: Path, mode: str = "wb") -> Iterator[IO[Any]]:
         if isinstance(exc, OSError):
             raise write_error(path, exc) from None
         raise
+
+
+# Set by deferred_syncs: files are renamed into place without an fsync each; the caller syncs
+# them all (sync_files) before anything that vouches for them (build.json) is written.
+_syncs_deferred = False
+
+
+@contextlib.contextmanager
+def deferred_syncs() -> Iterator[None]:
+    """Within the block, :func:`atomic_open` does not fsync each file: the kernel writes them
+    back while the build goes on, instead of the writer waiting for the disk file by file.
+    The caller must :func:`sync_files` them before it writes a file that describes them."""
+    global _syncs_deferred
+    previous, _syncs_deferred = _syncs_deferred, True
+    try:
+        yield
+    finally:
+        _syncs_deferred = previous
+
+
+def sync_files(paths: Iterable[Path]) -> None:
+    """fsync each file (what the kernel has not written back yet goes to the disk now)."""
+    for path in paths:
+        fd = os.open(path, os.O_RDONLY)
+        try:
+            os.fsync(fd)
+        finally:
+            os.close(fd)
 
 
 def atomic_write_text(path: Path, text: str) -> None:

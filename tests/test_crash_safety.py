@@ -296,3 +296,28 @@ def test_resume_reuses_parquet_shards_too(project: tuple[Path, dict[str, bytes]]
     assert result.reused_shards == ("train/shard-00000", "train/shard-00001")
     assert tree_bytes(out) == tree_bytes(tmp_path / "reference")
     assert verify(out, hashes_only=True).ok
+
+
+@pytest.mark.parametrize("jobs", [1, 2])
+def test_every_output_file_is_synced_before_build_json_is_written(
+        project: tuple[Path, dict[str, bytes]], out: Path, monkeypatch: pytest.MonkeyPatch, jobs: int) -> None:
+    # Files are renamed into place without an fsync each; one pass syncs them all before the
+    # index that vouches for them exists (common practice: fsync before publishing a manifest).
+    import importlib
+
+    build_module = importlib.import_module("bivocab.build")
+    root, reference = project
+    synced: list[tuple[str, bool]] = []
+    real_sync = build_module.sync_files
+
+    def recording_sync(paths):
+        paths = list(paths)
+        synced.extend((os.path.relpath(p, out), (out / MANIFEST).exists()) for p in paths)
+        real_sync(paths)
+
+    monkeypatch.setattr(build_module, "sync_files", recording_sync)
+    build(root / "recipe.toml", out, jobs=jobs)
+    listed = {entry["path"] for entry in json.loads((out / MANIFEST).read_text())["files"]}
+    assert {path for path, _ in synced} == listed
+    assert not any(manifest_existed for _, manifest_existed in synced)
+    assert tree_bytes(out) == reference

@@ -561,15 +561,70 @@ def _write_shard(writer: ShardWriter, recipe: Recipe, vocabs: list[Vocabulary],
         types = buckets.tokens(li, shard_index, r, lengths)
         gathered.append((mask, lengths, types))
     write_npy(writer.out / f"provenance/{stem}.npy", prov)
+    word_layouts: dict[bool, ShardLayout] = {}   # the word-level conditions share the layout
     shard_stats = {}
     for cond, vocab in zip(recipe.conditions, vocabs):
+        eos = vocab.eos_ids is not None
         sub = subwords.get(cond.name)
-        here = gathered if sub is None else [
-            (mask, *sub.gather(li, rows_here[mask])) for li, (mask, _, _) in enumerate(gathered)]
-        stat = shard_stats[cond.name] = [0, 0, [0] * len(recipe.tags), [0] * len(recipe.tags)]
-        _write_condition_shard(writer, cond.name, stem, vocab, langs, here, stat, prov)
+        if sub is None:
+            layout = word_layouts.get(eos) or word_layouts.setdefault(eos, ShardLayout(langs, gathered, eos))
+        else:
+            layout = ShardLayout(langs, [(mask, *sub.gather(li, rows_here[mask]))
+                                         for li, (mask, _, _) in enumerate(gathered)], eos)
+        shard_stats[cond.name] = layout.stats(vocab)
+        writer.write(f"{cond.name}/{stem}", layout.encode(vocab), layout.offsets, layout.langs, prov)
     journal.record(stem, paths, shard_stats)
     return shard_stats
+
+
+class ShardLayout:
+    """Where every token of a shard goes, computed once for all conditions that share the
+    shard's type ids (and the choice of an end-of-sentence token): a condition's token array is
+    then one look-up, ``table[index]``, in a table that holds the languages' look-up tables
+    one after the other and then their end-of-sentence ids."""
+
+    def __init__(self, langs: np.ndarray, gathered: list[tuple[np.ndarray, np.ndarray, np.ndarray]],
+                 eos: bool) -> None:
+        n = len(langs)
+        self.langs = langs.astype(np.uint8)
+        self.eos = eos
+        sent_len = np.empty(n, dtype=np.int64)
+        for mask, lengths, _ in gathered:
+            sent_len[mask] = lengths + (1 if eos else 0)
+        self.offsets = np.zeros(n + 1, dtype=np.int64)
+        np.cumsum(sent_len, out=self.offsets[1:])
+        self.index = np.empty(int(self.offsets[-1]), dtype=np.intp)
+        self.sentences = n
+        self.lang_types = [types for _, _, types in gathered]
+        self._gathered = [(mask, lengths) for mask, lengths, _ in gathered]
+
+    def _place(self, bases: list[int], eos_base: int) -> None:
+        for li, ((mask, lengths), types) in enumerate(zip(self._gathered, self.lang_types)):
+            self.index[ragged_gather(self.offsets[:-1][mask], lengths)] = types.astype(np.intp) + bases[li]
+            if self.eos:
+                self.index[self.offsets[1:][mask] - 1] = eos_base + li
+        self._placed = (tuple(bases), eos_base)
+
+    def encode(self, vocab: Vocabulary) -> np.ndarray:
+        """The shard's token ids under ``vocab`` (its look-up tables must have the sizes the
+        layout was placed for; the first call places it)."""
+        sizes = [len(lut) for lut in vocab.luts]
+        bases = [int(b) for b in np.cumsum([0] + sizes[:-1])]
+        if getattr(self, "_placed", None) != (tuple(bases), sum(sizes)):
+            self._place(bases, sum(sizes))
+        table = np.concatenate([np.asarray(lut, dtype=vocab.dtype) for lut in vocab.luts]
+                               + ([np.asarray(vocab.eos_ids, dtype=vocab.dtype)] if self.eos else []))
+        return table[self.index]
+
+    def stats(self, vocab: Vocabulary) -> list:
+        """[sentences, tokens (without end tokens), unknown tokens per language, tokens per language]."""
+        unknown, tokens = [], []
+        for li, types in enumerate(self.lang_types):
+            lut = np.asarray(vocab.luts[li])
+            counts = np.bincount(types, minlength=len(lut)) if len(types) else np.zeros(len(lut), np.int64)
+            unknown.append(int(counts[:len(lut)][lut == vocab.unk_ids[li]].sum()))
+            tokens.append(len(types))
+        return [self.sentences, sum(tokens), unknown, tokens]
 
 
 def _add_stat(total: list, part: list) -> None:
@@ -609,30 +664,6 @@ def _shard_members(order: SplitOrder, arrays: list[dict[str, np.ndarray]], max_t
     shard_of = begin // max_tokens
     cuts = np.flatnonzero(np.diff(shard_of)) + 1
     yield from np.split(np.arange(len(lengths)), cuts)
-
-
-def _write_condition_shard(writer: ShardWriter, condition: str, stem: str, vocab: Vocabulary, langs: np.ndarray,
-                           gathered: list[tuple[np.ndarray, np.ndarray, np.ndarray]], stat: list,
-                           provenance: np.ndarray) -> list[str]:
-    eos = vocab.eos_ids is not None
-    n = len(langs)
-    sent_len = np.empty(n, dtype=np.int64)
-    for mask, lengths, _ in gathered:
-        sent_len[mask] = lengths + (1 if eos else 0)
-    offsets = np.zeros(n + 1, dtype=np.int64)
-    np.cumsum(sent_len, out=offsets[1:])
-    tokens = np.empty(int(offsets[-1]), dtype=vocab.dtype)
-    for li, (mask, lengths, types) in enumerate(gathered):
-        ids = vocab.luts[li][types]
-        body = ragged_gather(offsets[:-1][mask], lengths)
-        tokens[body] = ids
-        if eos:
-            tokens[offsets[1:][mask] - 1] = vocab.eos_ids[li]
-        stat[2][li] += int((ids == vocab.unk_ids[li]).sum())
-        stat[3][li] += len(ids)
-    stat[0] += n
-    stat[1] += int(sum(len(t) for _, _, t in gathered))
-    return writer.write(f"{condition}/{stem}", tokens, offsets, langs.astype(np.uint8), provenance)
 
 
 def _input_report(counters: Counter) -> Counter:

@@ -4,10 +4,12 @@ they must equal the digests of the files read back from disk."""
 from __future__ import annotations
 
 import hashlib
+import io
 import json
 from pathlib import Path
 
 import numpy as np
+import pytest
 
 import bivocab
 from bivocab import manifest
@@ -61,3 +63,14 @@ def test_file_changed_after_writing_is_read_again(tmp_path: Path) -> None:
     record = file_record(tmp_path, "x.npy")
     assert record["sha256"] == sha256_file(path)
     assert record["content_sha256"] == content_sha256(path)
+
+
+@pytest.mark.parametrize("array", [np.arange(10, dtype=np.uint16), np.zeros(0, np.int64), np.arange(7, dtype=np.uint8),
+                                   np.arange(70_000, dtype=np.uint32),
+                                   np.array([(1, 5), (2, 7)], dtype=[("input", "<u4"), ("line", "<i8")])])
+def test_write_npy_writes_the_bytes_of_numpy_save(array: np.ndarray, tmp_path: Path) -> None:
+    # Reference: numpy.save itself (the NPY format of numpy.lib.format).
+    expected = io.BytesIO()
+    np.save(expected, array, allow_pickle=False)
+    write_npy(tmp_path / "a.npy", array)
+    assert (tmp_path / "a.npy").read_bytes() == expected.getvalue()

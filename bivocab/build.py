@@ -273,11 +273,11 @@ class _WorkArrays:
         self.text = open(work / f"{tag}.text", "wb")
 
     def append(self, result: ScanResult, global_tokens: np.ndarray) -> None:
-        self.handles["tokens"].write(global_tokens.astype(np.uint32).tobytes())
-        self.handles["lengths"].write(result.lengths.astype(np.int64).tobytes())
-        self.handles["splits"].write(result.splits.tobytes())
-        self.handles["lines"].write(result.line_numbers.astype(np.int64).tobytes())
-        self.handles["inputs"].write(np.full(len(result.lengths), result.file_index, np.uint32).tobytes())
+        # The files take the arrays' own buffers (no copy when the dtype is already right).
+        for name, values in (("tokens", global_tokens), ("lengths", result.lengths), ("splits", result.splits),
+                             ("lines", result.line_numbers)):
+            self.handles[name].write(np.ascontiguousarray(values, dtype=self.NAMES[name]).view(np.uint8))
+        self.handles["inputs"].write(np.full(len(result.lengths), result.file_index, np.uint32).view(np.uint8))
         if result.text:
             self.text.write(result.text.encode("utf-8") + b"\n")
 

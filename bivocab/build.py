@@ -567,7 +567,9 @@ def _write_shard(writer: ShardWriter, recipe: Recipe, vocabs: list[Vocabulary],
         eos = vocab.eos_ids is not None
         sub = subwords.get(cond.name)
         if sub is None:
-            layout = word_layouts.get(eos) or word_layouts.setdefault(eos, ShardLayout(langs, gathered, eos))
+            if eos not in word_layouts:
+                word_layouts[eos] = ShardLayout(langs, gathered, eos)
+            layout = word_layouts[eos]
         else:
             layout = ShardLayout(langs, [(mask, *sub.gather(li, rows_here[mask]))
                                          for li, (mask, _, _) in enumerate(gathered)], eos)
@@ -597,6 +599,7 @@ class ShardLayout:
         self.sentences = n
         self.lang_types = [types for _, _, types in gathered]
         self._gathered = [(mask, lengths) for mask, lengths, _ in gathered]
+        self._placed: tuple[tuple[int, ...], int] | None = None   # the table layout ``index`` points into
 
     def _place(self, bases: list[int], eos_base: int) -> None:
         for li, ((mask, lengths), types) in enumerate(zip(self._gathered, self.lang_types)):
@@ -610,7 +613,7 @@ class ShardLayout:
         layout was placed for; the first call places it)."""
         sizes = [len(lut) for lut in vocab.luts]
         bases = [int(b) for b in np.cumsum([0] + sizes[:-1])]
-        if getattr(self, "_placed", None) != (tuple(bases), sum(sizes)):
+        if self._placed != (tuple(bases), sum(sizes)):
             self._place(bases, sum(sizes))
         table = np.concatenate([np.asarray(lut, dtype=vocab.dtype) for lut in vocab.luts]
                                + ([np.asarray(vocab.eos_ids, dtype=vocab.dtype)] if self.eos else []))

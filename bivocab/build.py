@@ -314,11 +314,10 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
     """The build's stages; threads it starts are entered into ``background`` (joined by the caller)."""
     tags = recipe.tags
     files = input_files(recipe)
-    if jobs > 1:
-        start_worker_server()
     # --jobs N keeps at most N cores busy: with more than one, the inputs are hashed beside the
     # scan (the journal needs the hashes only after it) and shard digests beside the writing.
     if jobs > 1:
+        start_worker_server()
         input_states = start_hashing_inputs(files)
     else:
         with meter.stage("hash inputs", total=len(files), unit="files"):

@@ -62,7 +62,8 @@ def check(recipe: Path) -> None:
 @main.command(name="build")
 @click.argument("recipe", type=click.Path(dir_okay=False, path_type=Path))
 @click.option("--out", "out", required=True, type=click.Path(path_type=Path), help="Build directory.")
-@click.option("--jobs", default=1, show_default=True, type=click.IntRange(min=1), help="Cores to use (worker processes and threads); 1 keeps the build on one core.")
+@click.option("--jobs", default=1, show_default=True, type=click.IntRange(min=1),
+              help="Cores to use (worker processes and threads); 1 keeps the build on one core.")
 @click.option("--force", is_flag=True, help="Replace a directory that holds something else.")
 @click.option("--quiet", is_flag=True, help="Print nothing but errors.")
 @click.option("--resume", is_flag=True, help="Reuse the hash-checked shards of an interrupted build of the same recipe.")

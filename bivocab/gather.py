@@ -9,7 +9,6 @@ reads one region per language.
 
 from __future__ import annotations
 
-from concurrent.futures import Executor
 from pathlib import Path
 
 import numpy as np
@@ -25,15 +24,12 @@ class ShardBuckets:
     type ids of the given rows (a shard's sentences of language ``li``, in any order)."""
 
     def __init__(self, work: Path, split: str, langs: np.ndarray, rows: np.ndarray, shard_of: np.ndarray,
-                 token_paths: list[Path], lengths: list[np.ndarray], starts: list[np.ndarray],
-                 pool: Executor | None = None) -> None:
-        """``pool``: the languages' bucket files are filled in parallel on it."""
+                 token_paths: list[Path], lengths: list[np.ndarray], starts: list[np.ndarray]) -> None:
         n_shards = int(shard_of.max()) + 1 if len(shard_of) else 0
         self._rows: list[np.ndarray] = []          # per language: rows sorted by (shard, row)
         self._bounds: list[np.ndarray] = []        # per language: first index of each shard in _rows
         self._local: list[np.ndarray] = []         # per language: bucket offset of each sorted row, and the end
         self._paths: list[Path] = []
-        copies = []
         for li, path in enumerate(token_paths):
             mine = langs == li
             lang_rows, lang_shards = rows[mine], shard_of[mine]
@@ -43,17 +39,11 @@ class ShardBuckets:
             local = np.zeros(len(sizes) + 1, dtype=np.int64)
             np.cumsum(sizes, out=local[1:])
             bucket = work / f"bucket.{split}.{li}.bin"
-            copies.append((path, bucket, sorted_rows, local[:-1], sizes, np.asarray(starts[li])))
+            _copy_into_bucket(path, bucket, sorted_rows, local[:-1], sizes, np.asarray(starts[li]))
             self._rows.append(sorted_rows)
             self._bounds.append(np.searchsorted(sorted_shards, np.arange(n_shards + 1)))
             self._local.append(local)
             self._paths.append(bucket)
-        if pool is None:
-            for args in copies:
-                _copy_into_bucket(*args)
-        else:
-            for done in [pool.submit(_copy_into_bucket, *args) for args in copies]:
-                done.result()
 
     def tokens(self, li: int, shard: int, rows: np.ndarray, lengths: np.ndarray) -> np.ndarray:
         lo, hi = int(self._bounds[li][shard]), int(self._bounds[li][shard + 1])

@@ -10,7 +10,6 @@ import contextlib
 import dataclasses
 import functools
 import gc
-import importlib
 import os
 import shutil
 import time
@@ -330,10 +329,6 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
     plain = all(f.path.suffix.lower() not in (".gz", ".bz2", ".xz", ".lzma", ".zst") for f in files)
     total_bytes = sum(os.path.getsize(f.path) for f in files) if plain else None
     hygiene = prepare_hygiene(recipe, files, jobs)
-    if jobs > 1:
-        # pyarrow imports pandas on its first array conversion (about 0.3 s of this process's
-        # time): do it while this process mostly waits for the scan workers.
-        background.enter_context(_threads(1, "bivocab-preload")).submit(importlib.import_module, "pandas")
     with meter.stage("scan", total=total_bytes, unit="B") as advance:
         type_maps = WorkerTypeMaps()
         # The sentences' text goes to the work directory only for hygiene and subword training.

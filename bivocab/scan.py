@@ -30,6 +30,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
+from .arrow import bool_numpy, int64_array, numpy_view
 from .clean import clean_block, clean_block_bytes
 from .errors import BivocabError
 from .recipe import CleanSpec
@@ -128,13 +129,14 @@ class ChunkTable:
         first = len(self.chunks)
         self.chunks.update(zip(texts, range(first, first + len(texts))))
         parts = pc.extract_regex(chunks, _SIMPLE_CHUNK)     # null where the chunk has another shape
-        simple = parts.is_valid().to_numpy(zero_copy_only=False)
+        valid = parts.is_valid()
+        simple = bool_numpy(valid)
         other = np.flatnonzero(~simple)
         segmented = [segment(texts[i]) for i in other.tolist()]
-        parts = parts.filter(simple)
+        parts = parts.filter(valid)
         before, core, after = (parts.field(name) for name in ("before", "core", "after"))
-        marks_before = pc.binary_length(before).to_numpy().astype(np.int64)   # ASCII: bytes are characters
-        marks_after = pc.binary_length(after).to_numpy().astype(np.int64)
+        marks_before = numpy_view(pc.binary_length(before)).astype(np.int64)   # ASCII: bytes are characters
+        marks_after = numpy_view(pc.binary_length(after)).astype(np.int64)
         lengths = np.empty(len(texts), dtype=np.int64)
         lengths[simple] = marks_before + 1 + marks_after
         lengths[other] = [len(tokens) for tokens in segmented]
@@ -263,7 +265,7 @@ def scan_block(task: ScanTask) -> ScanResult:
         gc_was_enabled = gc.isenabled()
         gc.disable()  # many small objects and no cycles: the collector would only add time
         try:
-            chunk_ids[missing] = table.add(encoded.dictionary.take(pa.array(missing)))
+            chunk_ids[missing] = table.add(encoded.dictionary.take(int64_array(missing)))
         finally:
             if gc_was_enabled:
                 gc.enable()
@@ -272,7 +274,7 @@ def scan_block(task: ScanTask) -> ScanResult:
     distinct_lengths = table.lengths.data[chunk_ids]
     distinct_tokens = table.flat.data[ragged_gather(table.starts.data[chunk_ids], distinct_lengths)]
     distinct_starts = np.cumsum(distinct_lengths) - distinct_lengths
-    indices = encoded.indices.to_numpy(zero_copy_only=False)
+    indices = numpy_view(encoded.indices)
     occurrence_lengths = distinct_lengths[indices]
     tokens = distinct_tokens[ragged_gather(distinct_starts[indices], occurrence_lengths)]
     line_starts = np.cumsum(chunks_per_line) - chunks_per_line
@@ -353,9 +355,7 @@ def _context() -> multiprocessing.context.BaseContext:
     """Workers come from a fork server: cheap to start, and never a fork of a parent whose
     library thread pools (pyarrow, tokenizers) are already running."""
     ctx = multiprocessing.get_context("forkserver")
-    # pyarrow imports pandas (when installed) on its first conversion of an array to numpy or
-    # Python objects, about 0.3 s: loaded once by the server, every worker inherits it.
-    ctx.set_forkserver_preload(["bivocab.scan", "pandas"])
+    ctx.set_forkserver_preload(["bivocab.scan"])
     return ctx
 
 

@@ -21,6 +21,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
+from .arrow import bool_numpy, int64_array, string_array
 from .errors import BivocabError
 from .recipe import ConditionSpec, CleanSpec
 from .segment import LATIN_LETTERS, NUMBER, PUNCT, SPECIAL, SYMBOL, WORD, pre_tokenizer_json, token_class
@@ -186,8 +187,8 @@ def _classify(types: list[str]) -> np.ndarray:
     letter is a word (one vectorised match for most of them), the others are asked one by one."""
     code = {name: i for i, name in enumerate(CLASS_NAMES)}
     classes = np.full(len(types), code[WORD], dtype=np.uint8)
-    latin = pc.match_substring_regex(pa.array(types, pa.string()), f"[{LATIN_LETTERS}]")
-    others = np.flatnonzero(~latin.to_numpy(zero_copy_only=False)) if len(types) else np.zeros(0, np.int64)
+    latin = pc.match_substring_regex(string_array(types), f"[{LATIN_LETTERS}]")
+    others = np.flatnonzero(~bool_numpy(latin)) if len(types) else np.zeros(0, np.int64)
     classes[others] = np.fromiter((code[token_class(types[i])] for i in others.tolist()), dtype=np.uint8,
                                   count=len(others))
     return classes
@@ -333,7 +334,7 @@ def decimal_column(values: np.ndarray) -> list[str]:
     >>> decimal_column(np.array([3, -1, 0, 12]))
     ['3', '-1', '0', '12']
     """
-    return pc.cast(pa.array(values), pa.string()).to_pylist()
+    return pc.cast(int64_array(values), pa.string()).to_pylist()
 
 
 def tsv_text(header: list[str], rows: list[list[str]]) -> str:

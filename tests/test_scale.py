@@ -250,3 +250,16 @@ def test_the_program_exits_with_the_command_exit_code_and_its_output_flushed(tmp
     assert bad.returncode == 2 and bad.stderr.startswith("error: ") and bad.stderr.count("\n") == 1
     usage = subprocess.run([sys.executable, "-m", "bivocab", "build"], capture_output=True, text=True)
     assert usage.returncode == 2 and "Missing argument" in usage.stderr
+
+
+def test_a_word_level_build_never_imports_pandas(tmp_path: Path) -> None:
+    # pyarrow imports pandas (about 0.3 s) whenever pyarrow.array or to_numpy is called; the
+    # build makes its arrow arrays from buffers (bivocab.arrow) so neither it nor its workers pay that.
+    recipe = _corpus(tmp_path, sentences=200)
+    script = ("import sys\n"
+              "from bivocab import build\n"
+              f"build({str(recipe)!r}, {str(tmp_path / 'out')!r}, jobs=1)\n"
+              "print(sorted(m for m in sys.modules if m.split('.')[0] == 'pandas'))\n")
+    done = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.splitlines()[0] == "[]"

@@ -27,7 +27,7 @@ from .errors import BivocabError, OutputError
 from .hygiene import prepare_hygiene
 from .manifest import (CONTROL_FILES, INCOMPLETE, LOCK, MANIFEST, WORK, atomic_open, atomic_write_text,
                        background_digests, build_lock, canonical_json, check_inputs_unchanged, checkpoint,
-                       deferred_syncs, environment, file_record, fsync_dir, read_manifest, remove_temp_files,
+                       CONTENT_SCHEME, deferred_syncs, environment, file_record, fsync_dir, read_manifest, remove_temp_files,
                        sha256_file, start_hashing_inputs, sync_files, write_error)
 from .mix import SplitOrder, mix_split
 from .recipe import SPLITS, Recipe, load_recipe
@@ -699,6 +699,7 @@ def _manifest(recipe: Recipe, out: Path, files: list[InputFile], hashes: dict[st
     files_out = [records.get(path) or file_record(out, path) for path in sorted(set(written))]
     return {
         "bivocab": __version__,
+        "content_digest": CONTENT_SCHEME,
         "recipe": recipe.resolved(),
         "recipe_file": os.path.relpath(recipe_file, out.resolve()),
         "recipe_sha256": recipe_sha,

@@ -256,69 +256,102 @@ def is_temp_file(name: str) -> bool:
     return bool(_TEMP_RE.match(name))
 
 
-def array_digest(array: np.ndarray) -> str:
+# How content digests hash integers (build.json "content_digest"; a build.json without the key
+# used scheme 1): 1 widened every integer to little-endian int64; 2 uses the narrowest
+# little-endian width that holds the array's values (unsigned unless a value is negative), so
+# a uint32 token array is hashed as it is stored, with no conversion and half the bytes.
+CONTENT_SCHEME = 2
+_WIDTHS = (1, 2, 4, 8)
+
+
+def content_scheme(manifest: dict[str, Any]) -> int:
+    """The content digest scheme a build.json's ``content_sha256`` values were made with."""
+    return int(manifest.get("content_digest", 1))
+
+
+def array_digest(array: np.ndarray, scheme: int = CONTENT_SCHEME) -> str:
     """sha256 of the values of an array, independent of how they are stored: integers are
-    hashed as little-endian int64 (so a uint16 and a uint32 array of equal ids agree), the
-    fields of a structured array one after another by name.
+    hashed little-endian in a width that depends on the values only (``scheme``), so a uint16
+    and a uint32 array of equal ids agree; the fields of a structured array one after
+    another by name.
 
     >>> array_digest(np.array([1, 2], np.uint16)) == array_digest(np.array([1, 2], np.int64))
     True
+    >>> array_digest(np.array([1, 2], np.uint16), 1) == array_digest(np.array([1, 2], np.int64), 1)
+    True
     """
     digest = hashlib.sha256()
-    _update_array(digest, array)
+    _update_array(digest, array, scheme)
     return digest.hexdigest()
 
 
-def _update_array(digest: Any, array: np.ndarray) -> None:
+def _integer_target(array: np.ndarray, scheme: int) -> str:
+    """The little-endian dtype an integer (or boolean) array's values are hashed as."""
+    if scheme == 1:
+        return "<u8" if array.dtype.kind == "u" and array.dtype.itemsize == 8 else "<i8"
+    if array.size == 0:
+        return "|u1"
+    low, high = int(array.min()), int(array.max())
+    if low >= 0:
+        width = next(w for w in _WIDTHS if high < 1 << (8 * w))
+        return "|u1" if width == 1 else f"<u{width}"
+    width = next(w for w in _WIDTHS if -(1 << (8 * w - 1)) <= low and high < 1 << (8 * w - 1))
+    return "|i1" if width == 1 else f"<i{width}"
+
+
+def _update_array(digest: Any, array: np.ndarray, scheme: int = CONTENT_SCHEME) -> None:
     if array.dtype.names:
         for name in array.dtype.names:
             digest.update(f"field {name}\n".encode("utf-8"))
-            _update_array(digest, array[name])
+            _update_array(digest, array[name], scheme)
         return
     flat = array.reshape(-1)
-    kind = array.dtype.kind
-    target = "<u8" if kind == "u" and array.dtype.itemsize == 8 else ("<i8" if kind in "iub" else None)
+    target = _integer_target(array, scheme) if array.dtype.kind in "iub" else None
     digest.update(f"{target or array.dtype.str} {array.shape}\n".encode("utf-8"))
+    same = target is not None and np.dtype(target) == array.dtype
     step = 1 << 20  # bounded memory for large memory-mapped shards
     for start in range(0, len(flat), step):
         part = np.asarray(flat[start:start + step])
-        # hashlib reads the array's buffer: no bytes copy beside the conversion.
-        digest.update(part.astype(target) if target else np.ascontiguousarray(part).view(np.uint8))
+        # hashlib reads the array's buffer: no bytes copy beside a conversion.
+        if target is None or same:
+            digest.update(np.ascontiguousarray(part).view(np.uint8))
+        else:
+            digest.update(part.astype(target))
 
 
-def _column_digest(digest: Any, column: Any) -> None:
+def _column_digest(digest: Any, column: Any, scheme: int) -> None:
     import pyarrow as pa
 
     array = column.combine_chunks() if isinstance(column, pa.ChunkedArray) else column
     if pa.types.is_list(array.type) or pa.types.is_large_list(array.type):
         offsets = np.asarray(array.offsets)
-        _update_array(digest, offsets - offsets[0])
-        _column_digest(digest, array.flatten())
+        _update_array(digest, offsets - offsets[0], scheme)
+        _column_digest(digest, array.flatten(), scheme)
     elif pa.types.is_integer(array.type) and array.null_count == 0:
-        _update_array(digest, array.to_numpy())
+        _update_array(digest, array.to_numpy(), scheme)
     else:  # strings, dictionaries, nulls: compare by value
         digest.update(canonical_json(array.to_pylist()).encode("utf-8"))
 
 
-def content_sha256(path: Path) -> str | None:
+def content_sha256(path: Path, scheme: int = CONTENT_SCHEME) -> str | None:
     """Digest of the data in a shard file (``.npy``: the array; ``.parquet``: each column by
     name), so that a rebuild can tell changed data from a changed container (npy header,
     integer width, Parquet writer metadata). None for other files, whose bytes are their content."""
     if path.suffix == ".npy":
-        return array_digest(np.load(path, mmap_mode="r", allow_pickle=False))
+        return array_digest(np.load(path, mmap_mode="r", allow_pickle=False), scheme)
     if path.suffix == ".parquet":
         import pyarrow.parquet as pq
 
-        return table_digest(pq.read_table(path))
+        return table_digest(pq.read_table(path), scheme)
     return None
 
 
-def table_digest(table: Any) -> str:
+def table_digest(table: Any, scheme: int = CONTENT_SCHEME) -> str:
     """The content digest of a Parquet shard from its (pyarrow) table: each column by name."""
     digest = hashlib.sha256()
     for name in sorted(table.column_names):
         digest.update(f"column {name}\n".encode("utf-8"))
-        _column_digest(digest, table.column(name))
+        _column_digest(digest, table.column(name), scheme)
     return digest.hexdigest()
 
 

@@ -18,8 +18,9 @@ from typing import Any, Callable
 import numpy as np
 
 from .errors import CheckFailed, InputError, OutputError
-from .manifest import (ANALYSIS_DIRS, CONTROL_FILES, INCOMPLETE, MANIFEST, canonical_json, content_sha256, environment,
-                       incomplete_reason, is_temp_file, read_manifest, sha256_file)
+from .manifest import (ANALYSIS_DIRS, CONTENT_SCHEME, CONTROL_FILES, INCOMPLETE, MANIFEST, canonical_json,
+                       content_scheme, content_sha256, environment, incomplete_reason, is_temp_file, read_manifest,
+                       sha256_file)
 from .recipe import Recipe, recipe_from_manifest, resolve_recipe_inputs
 from .sources import file_sha256
 
@@ -32,7 +33,8 @@ CHANGED_ON_DISK = "changed on disk"  # the file in DIR no longer matches build.j
 EXTRA_ON_DISK = "extra on disk"
 SAME_CONTENT = "same content, container differs"
 # build.json keys that legitimately differ between a build and its rebuild elsewhere.
-_UNCOMPARED_KEYS = {"environment", "recipe_file", "recipe_sha256", "files"}
+# "content_digest" names how the content digests were computed, not what was built.
+_UNCOMPARED_KEYS = {"environment", "recipe_file", "recipe_sha256", "files", "content_digest"}
 
 
 @dataclass(frozen=True)
@@ -96,7 +98,8 @@ def verify(out: str | os.PathLike[str], hashes_only: bool = False, jobs: int = 1
         raise OutputError(f"{out / MANIFEST}: not a bivocab build manifest (no file list)")
     warnings = environment_warnings(manifest)
     records = {f["path"]: f for f in manifest["files"]}
-    disk = check_files_on_disk(out, records, manifest.get("recipe_file", ""))
+    scheme = content_scheme(manifest)
+    disk = check_files_on_disk(out, records, manifest.get("recipe_file", ""), scheme)
     if hashes_only:
         return VerifyReport(str(out), "hashes", (), tuple(disk), tuple(warnings), (), _counts(disk))
 
@@ -119,7 +122,7 @@ def verify(out: str | os.PathLike[str], hashes_only: bool = False, jobs: int = 1
         progress("compare")
         intact = {c.path for c in disk if c.status == IDENTICAL}
         compared = compare_rebuild(records, {f["path"]: f for f in rebuilt["files"]},
-                                   out, rebuilt_dir, intact)
+                                   out, rebuilt_dir, intact, scheme)
         compared.append(compare_manifests(manifest, rebuilt))
     files = [c for c in disk if c.status != IDENTICAL] + compared
     return VerifyReport(str(out), "rebuild", tuple(inputs), tuple(files), tuple(warnings), tuple(notes),
@@ -137,9 +140,11 @@ def environment_warnings(manifest: dict[str, Any]) -> list[str]:
     return ["environment differs from the build's, so bytes may differ: " + "; ".join(changed)]
 
 
-def check_files_on_disk(out: Path, records: dict[str, dict[str, Any]], recipe_file: str = "") -> list[FileCheck]:
+def check_files_on_disk(out: Path, records: dict[str, dict[str, Any]], recipe_file: str = "",
+                        scheme: int = CONTENT_SCHEME) -> list[FileCheck]:
     """Each recorded file against its size and sha256 on disk, plus files the build did not write
-    (the recipe file, when it lives in the build directory, is expected there)."""
+    (the recipe file, when it lives in the build directory, is expected there). ``scheme``: the
+    content digest scheme of the records."""
     checks = []
     for path, record in sorted(records.items()):
         full = out / path
@@ -152,7 +157,7 @@ def check_files_on_disk(out: Path, records: dict[str, dict[str, Any]], recipe_fi
             continue
         detail = f"{size:,} bytes, build.json records {record.get('bytes', 0):,}" if size != record.get("bytes") \
             else "sha256 differs"
-        content = _safe_content(full)
+        content = _safe_content(full, scheme)
         if content is not None and record.get("content_sha256"):
             detail += "; content " + ("intact" if content == record["content_sha256"] else "changed")
         checks.append(FileCheck(path, CHANGED_ON_DISK, detail))
@@ -168,9 +173,9 @@ def check_files_on_disk(out: Path, records: dict[str, dict[str, Any]], recipe_fi
     return checks
 
 
-def _safe_content(path: Path) -> str | None:
+def _safe_content(path: Path, scheme: int = CONTENT_SCHEME) -> str | None:
     try:
-        return content_sha256(path)
+        return content_sha256(path, scheme)
     except (OSError, ValueError, EOFError):  # a corrupted file may not even parse
         return None
 
@@ -211,9 +216,10 @@ def _recipe_notes(manifest: dict[str, Any], recipe: Recipe) -> list[str]:
 
 
 def compare_rebuild(records: dict[str, dict[str, Any]], rebuilt: dict[str, dict[str, Any]], out: Path,
-                    rebuilt_dir: Path, intact: set[str]) -> list[FileCheck]:
+                    rebuilt_dir: Path, intact: set[str], scheme: int = CONTENT_SCHEME) -> list[FileCheck]:
     """Recorded files against rebuilt ones; ``intact`` are the originals on disk that still match
-    their records, used to point at the first difference."""
+    their records, used to point at the first difference; ``scheme``: the content digest
+    scheme of the records (a rebuilt file is digested again in it when it is not this version's)."""
     checks = []
     for path in sorted(set(records) | set(rebuilt)):
         old, new = records.get(path), rebuilt.get(path)
@@ -225,6 +231,8 @@ def compare_rebuild(records: dict[str, dict[str, Any]], rebuilt: dict[str, dict[
             checks.append(FileCheck(path, IDENTICAL))
         else:
             original = out / path if path in intact else None
+            if scheme != CONTENT_SCHEME and new.get("content_sha256"):
+                new = {**new, "content_sha256": _safe_content(rebuilt_dir / path, scheme)}
             checks.append(FileCheck(path, DIFFERENT, _difference(old, new, original, rebuilt_dir / path)))
     return checks
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import hashlib
 import importlib
 import json
 import os
@@ -171,6 +172,56 @@ def test_content_digest_ignores_integer_width_but_not_values() -> None:
     ids = np.array([3, 1, 4, 1, 5], dtype=np.uint16)
     assert array_digest(ids) == array_digest(ids.astype(np.uint32))
     assert array_digest(ids) != array_digest(ids[::-1])
+
+
+def test_content_digest_hashes_integers_in_the_narrowest_width_holding_them() -> None:
+    # Scheme 2: the header names the width, then the little-endian values (sha256 from hashlib,
+    # the Python standard library's FIPS 180-4 implementation).
+    ids = np.array([70000, 1, 2], dtype=np.int64)
+    assert array_digest(ids) == hashlib.sha256(b"<u4 (3,)\n" + ids.astype("<u4").tobytes()).hexdigest()
+    small = np.array([300, 0], dtype=np.uint32)
+    assert array_digest(small) == hashlib.sha256(b"<u2 (2,)\n" + small.astype("<u2").tobytes()).hexdigest()
+    signed = np.array([-1, 127], dtype=np.int64)
+    assert array_digest(signed) == hashlib.sha256(b"|i1 (2,)\n" + signed.astype("i1").tobytes()).hexdigest()
+    assert array_digest(np.array([200, 3], np.uint8)) == array_digest(np.array([200, 3], np.int16))
+    # Scheme 1 (builds before build.json named a scheme) widened everything to int64.
+    assert array_digest(ids, 1) == hashlib.sha256(b"<i8 (3,)\n" + ids.astype("<i8").tobytes()).hexdigest()
+    assert array_digest(ids, 1) != array_digest(ids)
+
+
+def _as_scheme_1(out: Path) -> None:
+    """Rewrite build.json as a build that predates content digest scheme 2 would have written it."""
+    manifest = json.loads((out / MANIFEST).read_text())
+    assert manifest.pop("content_digest") == 2
+    for record in manifest["files"]:
+        if "content_sha256" in record:
+            record["content_sha256"] = content_sha256(out / record["path"], 1)
+    (out / MANIFEST).write_text(json.dumps(manifest))
+
+
+def test_a_build_recorded_with_the_older_content_digests_still_verifies(copy: Path,
+                                                                       monkeypatch: pytest.MonkeyPatch) -> None:
+    _as_scheme_1(copy)
+    assert verify(copy, hashes_only=True).ok
+    shard = copy / first_shard(copy)
+    _npy_version_2(shard, np.load(shard))
+    assert bad(verify(copy, hashes_only=True)) == {first_shard(copy): (CHANGED_ON_DISK,
+                                                                        "sha256 differs; content intact")}
+    _npy_version_2(shard, np.load(shard) + 1)
+    assert bad(verify(copy, hashes_only=True))[first_shard(copy)][1].endswith("content changed")
+
+    changed = first_shard(copy, "offsets")
+
+    def write(path: Path, array: np.ndarray) -> None:
+        _npy_version_2(path, array + 1 if path.as_posix().endswith(changed) else array)
+
+    import bivocab.shards
+
+    monkeypatch.setattr(build_module, "write_npy", write)
+    monkeypatch.setattr(bivocab.shards, "write_npy", write)
+    problems = bad(verify(copy))
+    assert problems.pop(changed)[1].startswith("content differs")
+    assert problems and all(detail == SAME_CONTENT for _, detail in problems.values()), problems
 
 
 def test_parquet_content_digest_ignores_writer_metadata(tmp_path: Path) -> None:

@@ -594,6 +594,7 @@ class ShardLayout:
         self.lang_types = [types for _, _, types in gathered]
         self._gathered = [(mask, lengths) for mask, lengths, _ in gathered]
         self._placed: tuple[tuple[int, ...], int] | None = None   # the table layout ``index`` points into
+        self._type_counts: dict[tuple[int, int], np.ndarray] = {}
 
     def _place(self, bases: list[int], eos_base: int) -> None:
         for li, ((mask, lengths), types) in enumerate(zip(self._gathered, self.lang_types)):
@@ -618,8 +619,13 @@ class ShardLayout:
         unknown, tokens = [], []
         for li, types in enumerate(self.lang_types):
             lut = np.asarray(vocab.luts[li])
-            counts = np.bincount(types, minlength=len(lut)) if len(types) else np.zeros(len(lut), np.int64)
-            unknown.append(int(counts[:len(lut)][lut == vocab.unk_ids[li]].sum()))
+            # The type counts are the same for every condition of the layout: counted once.
+            key = (li, len(lut))
+            counts = self._type_counts.get(key)
+            if counts is None:
+                counts = self._type_counts[key] = np.bincount(types, minlength=len(lut))[:len(lut)] if len(types) \
+                    else np.zeros(len(lut), np.int64)
+            unknown.append(int(counts[lut == vocab.unk_ids[li]].sum()))
             tokens.append(len(types))
         return [self.sentences, sum(tokens), unknown, tokens]
 

@@ -366,12 +366,16 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
     starts = [np.concatenate(([0], np.cumsum(a["lengths"])[:-1])).astype(np.int64) if len(a["lengths"])
               else np.zeros(0, np.int64) for a in arrays]
     prepare = functools.partial(_prepare_split, recipe=recipe, arrays=arrays, work=work,
-                                token_paths=[w.paths["tokens"] for w in writers], starts=starts)
+                                token_paths=[w.paths["tokens"] for w in writers], starts=starts,
+                                threads=min(jobs, len(tags)))
+    # The smaller splits come first: their shards are written while the largest split's buckets
+    # are still being filled (the order in which shards are written changes no output).
+    split_order = sorted(range(len(SPLITS)), key=lambda si: getattr(recipe.splits, SPLITS[si]))
     if jobs > 1:
         preparing = background.enter_context(_threads(1, "bivocab-split-prep"))
-        prepared = [preparing.submit(prepare, si).result for si in range(len(SPLITS))]
+        prepared = {si: preparing.submit(prepare, si).result for si in split_order}
     else:
-        prepared = [functools.partial(prepare, si) for si in range(len(SPLITS))]
+        prepared = {si: functools.partial(prepare, si) for si in split_order}
 
     surfaces = [scan.table.surfaces for scan in scans]
     subwords: dict[str, SubwordCondition] = {}
@@ -412,7 +416,8 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
         # The vocab files are written beside the shards when more than one core may be used.
         vocab_paths = threads.enter_context(_threads(1, "bivocab-vocab-files")).submit(vocab_files.write) \
             if jobs > 1 else None
-        for si, split in enumerate(SPLITS):
+        for si in split_order:
+            split = SPLITS[si]
             order, shard_list, buckets = prepared[si]()
             if order.sampling is not None:
                 mixing[split] = order.sampling
@@ -478,15 +483,16 @@ def _threads(count: int, name: str) -> Iterator[ThreadPoolExecutor]:
 
 
 def _prepare_split(si: int, recipe: Recipe, arrays: list[dict[str, np.ndarray]], work: Path,
-                   token_paths: list[Path], starts: list[np.ndarray]) -> tuple[SplitOrder, list[np.ndarray],
-                                                                              ShardBuckets]:
-    """Split ``si``'s mixed order, its shards' members (positions in that order) and its bucket files."""
+                   token_paths: list[Path], starts: list[np.ndarray], threads: int = 1) -> tuple[
+                       SplitOrder, list[np.ndarray], ShardBuckets]:
+    """Split ``si``'s mixed order, its shards' members (positions in that order) and its bucket
+    files (``threads`` languages' buckets filled at a time)."""
     rows = [np.flatnonzero(np.asarray(a["splits"]) == si) for a in arrays]
     order = mix_split(si, rows, recipe.mix, recipe.seed, [a["lengths"] for a in arrays])
     shard_list = list(_shard_members(order, arrays, recipe.shards.max_tokens))
     buckets = ShardBuckets(work, SPLITS[si], order.langs, order.rows,
                            np.repeat(np.arange(len(shard_list)), [len(m) for m in shard_list]),
-                           token_paths, [a["lengths"] for a in arrays], starts)
+                           token_paths, [a["lengths"] for a in arrays], starts, threads)
     return order, shard_list, buckets
 
 

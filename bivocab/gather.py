@@ -9,6 +9,7 @@ reads one region per language.
 
 from __future__ import annotations
 
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
 import numpy as np
@@ -24,13 +25,13 @@ class ShardBuckets:
     type ids of the given rows (a shard's sentences of language ``li``, in any order)."""
 
     def __init__(self, work: Path, split: str, langs: np.ndarray, rows: np.ndarray, shard_of: np.ndarray,
-                 token_paths: list[Path], lengths: list[np.ndarray], starts: list[np.ndarray]) -> None:
+                 token_paths: list[Path], lengths: list[np.ndarray], starts: list[np.ndarray],
+                 threads: int = 1) -> None:
+        """``threads``: languages whose buckets are filled at the same time (numpy sorts and
+        gathers and the file reads and writes release the GIL)."""
         n_shards = int(shard_of.max()) + 1 if len(shard_of) else 0
-        self._rows: list[np.ndarray] = []          # per language: rows sorted by (shard, row)
-        self._bounds: list[np.ndarray] = []        # per language: first index of each shard in _rows
-        self._local: list[np.ndarray] = []         # per language: bucket offset of each sorted row, and the end
-        self._paths: list[Path] = []
-        for li, path in enumerate(token_paths):
+
+        def fill(li: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, Path]:
             mine = langs == li
             lang_rows, lang_shards = rows[mine], shard_of[mine]
             order = np.lexsort((lang_rows, lang_shards))
@@ -39,11 +40,18 @@ class ShardBuckets:
             local = np.zeros(len(sizes) + 1, dtype=np.int64)
             np.cumsum(sizes, out=local[1:])
             bucket = work / f"bucket.{split}.{li}.bin"
-            _copy_into_bucket(path, bucket, sorted_rows, local[:-1], sizes, np.asarray(starts[li]))
-            self._rows.append(sorted_rows)
-            self._bounds.append(np.searchsorted(sorted_shards, np.arange(n_shards + 1)))
-            self._local.append(local)
-            self._paths.append(bucket)
+            _copy_into_bucket(token_paths[li], bucket, sorted_rows, local[:-1], sizes, np.asarray(starts[li]))
+            return sorted_rows, np.searchsorted(sorted_shards, np.arange(n_shards + 1)), local, bucket
+
+        if threads > 1 and len(token_paths) > 1:
+            with ThreadPoolExecutor(max_workers=threads, thread_name_prefix="bivocab-buckets") as pool:
+                filled = list(pool.map(fill, range(len(token_paths))))
+        else:
+            filled = [fill(li) for li in range(len(token_paths))]
+        self._rows = [f[0] for f in filled]        # per language: rows sorted by (shard, row)
+        self._bounds = [f[1] for f in filled]      # per language: first index of each shard in _rows
+        self._local = [f[2] for f in filled]       # per language: bucket offset of each sorted row, and the end
+        self._paths = [f[3] for f in filled]
 
     def tokens(self, li: int, shard: int, rows: np.ndarray, lengths: np.ndarray) -> np.ndarray:
         lo, hi = int(self._bounds[li][shard]), int(self._bounds[li][shard + 1])

@@ -184,6 +184,8 @@ def atomic_open(path: Path, mode: str = "wb") -> Iterator[IO[Any]]:
                 os.fsync(handle.fileno())
         os.replace(tmp, path)
         _WRITTEN[key] = _WrittenFile(hashing.digest.hexdigest(), hashing.size, _stat_key(path))
+        if _early_syncs is not None:
+            _schedule_early_sync(key)
     except BaseException as exc:
         with contextlib.suppress(FileNotFoundError):
             tmp.unlink()
@@ -195,6 +197,26 @@ def atomic_open(path: Path, mode: str = "wb") -> Iterator[IO[Any]]:
 # Set by deferred_syncs: files are renamed into place without an fsync each; the caller syncs
 # them all (sync_files) before anything that vouches for them (build.json) is written.
 _syncs_deferred = False
+# Meanwhile one thread fsyncs each file soon after it is in place, so that the disk works while
+# the build computes and the caller's sync pass finds little left to write; it only waits
+# for the disk (no CPU, no GIL). Best effort: the caller's pass is the one that counts.
+_early_syncs: ThreadPoolExecutor | None = None
+
+
+def _schedule_early_sync(path: str) -> None:
+    early = _early_syncs
+    if early is not None:
+        with contextlib.suppress(RuntimeError):   # shut down: the caller's sync pass has it
+            early.submit(_early_sync, path)
+
+
+def _early_sync(path: str) -> None:
+    with contextlib.suppress(OSError):
+        fd = os.open(path, os.O_RDONLY)
+        try:
+            os.fsync(fd)
+        finally:
+            os.close(fd)
 
 
 @contextlib.contextmanager
@@ -202,12 +224,14 @@ def deferred_syncs() -> Iterator[None]:
     """Within the block, :func:`atomic_open` does not fsync each file: the kernel writes them
     back while the build goes on, instead of the writer waiting for the disk file by file.
     The caller must :func:`sync_files` them before it writes a file that describes them."""
-    global _syncs_deferred
+    global _syncs_deferred, _early_syncs
     previous, _syncs_deferred = _syncs_deferred, True
+    outer, _early_syncs = _early_syncs, ThreadPoolExecutor(max_workers=1, thread_name_prefix="bivocab-writeback")
     try:
         yield
     finally:
-        _syncs_deferred = previous
+        early, _syncs_deferred, _early_syncs = _early_syncs, previous, outer
+        early.shutdown(wait=True, cancel_futures=True)   # what is still queued is left to sync_files
 
 
 def sync_files(paths: Iterable[Path]) -> None:

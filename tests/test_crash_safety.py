@@ -126,7 +126,8 @@ def test_resume_reuses_the_completed_shards_without_rewriting_them(
     result = CliRunner().invoke(main, ["build", str(root / "recipe.toml"), "--out", str(out), "--resume"])
     assert result.exit_code == 0, result.output
     assert f"note: {out} held an incomplete build (interrupted or failed); it was resumed\n" in result.stderr
-    assert "resume: reused 4 of" in result.stderr
+    # The valid and test shards (one each) are written before train's (smaller splits first).
+    assert "resume: reused 6 of" in result.stderr
     assert {p: (p.stat().st_ino, p.stat().st_mtime_ns) for p in done} == before
     assert tree_bytes(out) == reference
     assert not (out / JOURNAL).exists()
@@ -140,7 +141,8 @@ def test_resume_rewrites_a_completed_shard_whose_file_was_damaged(
     damaged = out / "word-tagged" / "train" / "shard-00001.tokens.npy"
     damaged.write_bytes(damaged.read_bytes()[:-2])
     result = build(root / "recipe.toml", out, resume=True)
-    assert result.reused_shards == ("train/shard-00000", "train/shard-00002")
+    assert result.reused_shards == ("valid/shard-00000", "test/shard-00000", "train/shard-00000",
+                                    "train/shard-00002")
     assert tree_bytes(out) == reference
 
 
@@ -293,7 +295,8 @@ def test_resume_reuses_parquet_shards_too(project: tuple[Path, dict[str, bytes]]
         pass
     assert (out / "shared" / "train" / "shard-00001.parquet").exists()
     result = build(recipe, out, resume=True)
-    assert result.reused_shards == ("train/shard-00000", "train/shard-00001")
+    assert result.reused_shards == ("valid/shard-00000", "test/shard-00000", "train/shard-00000",
+                                    "train/shard-00001")
     assert tree_bytes(out) == tree_bytes(tmp_path / "reference")
     assert verify(out, hashes_only=True).ok
 
@@ -320,4 +323,21 @@ def test_every_output_file_is_synced_before_build_json_is_written(
     listed = {entry["path"] for entry in json.loads((out / MANIFEST).read_text())["files"]}
     assert {path for path, _ in synced} == listed
     assert not any(manifest_existed for _, manifest_existed in synced)
+    assert tree_bytes(out) == reference
+
+
+def test_files_are_synced_early_in_the_background_while_the_build_goes_on(
+        project: tuple[Path, dict[str, bytes]], out: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    # Each file is handed to a writeback thread once it is in place (the disk works while the
+    # build computes); the final pass above still syncs every file before build.json.
+    import bivocab.manifest
+
+    early: list[str] = []
+    real = bivocab.manifest._schedule_early_sync
+    monkeypatch.setattr(bivocab.manifest, "_schedule_early_sync", lambda path: (early.append(path), real(path)))
+    root, reference = project
+    build(root / "recipe.toml", out, jobs=2)
+    listed = {str((out / entry["path"]).resolve()) for entry in json.loads((out / MANIFEST).read_text())["files"]}
+    assert listed <= {str(Path(p).resolve()) for p in early} | {str((out / MANIFEST).resolve())}
+    assert bivocab.manifest._early_syncs is None   # the thread is gone once the build returns
     assert tree_bytes(out) == reference

@@ -653,7 +653,9 @@ def _count_by_split(scan: LanguageScan, global_tokens: np.ndarray, result: ScanR
         grown[:, :scan.split_counts.shape[1]] = scan.split_counts
         scan.split_counts = grown
     if len(global_tokens):
-        keys = global_tokens.astype(np.int64) * 3 + np.repeat(result.splits, result.lengths)
+        # uint32 keys (3 x the types fits below 2**32) make fewer and smaller temporaries.
+        wide = np.int64 if 3 * n_types >= 1 << 32 else np.uint32
+        keys = global_tokens.astype(wide, copy=False) * wide(3) + np.repeat(result.splits, result.lengths)
         scan.split_counts[:, :n_types] += np.bincount(keys, minlength=3 * n_types).reshape(n_types, 3).T
     scan.sentences += len(result.lengths)
     scan.tokens += len(global_tokens)

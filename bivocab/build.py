@@ -368,12 +368,13 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
     prepare = functools.partial(_prepare_split, recipe=recipe, arrays=arrays, work=work,
                                 token_paths=[w.paths["tokens"] for w in writers], starts=starts,
                                 threads=min(jobs, len(tags)))
-    # The smaller splits come first: their shards are written while the largest split's buckets
-    # are still being filled (the order in which shards are written changes no output).
+    # The smaller splits' shards are written first, while the largest split's buckets are still
+    # being filled (the order in which shards are written changes no output): one thread
+    # prepares the largest split from the start, another the others in turn.
     split_order = sorted(range(len(SPLITS)), key=lambda si: getattr(recipe.splits, SPLITS[si]))
     if jobs > 1:
-        preparing = background.enter_context(_threads(1, "bivocab-split-prep"))
-        prepared = {si: preparing.submit(prepare, si).result for si in split_order}
+        preparing = background.enter_context(_threads(2, "bivocab-split-prep"))
+        prepared = {si: preparing.submit(prepare, si).result for si in split_order[-1:] + split_order[:-1]}
     else:
         prepared = {si: functools.partial(prepare, si) for si in split_order}
 

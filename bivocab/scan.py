@@ -366,10 +366,19 @@ def start_worker_server() -> None:
     multiprocessing.forkserver.ensure_running()
 
 
-def _serve(fn: Callable[[T], R], inbox: multiprocessing.Queue, outbox: multiprocessing.Queue) -> None:
-    """Worker process: apply ``fn`` to each item of ``inbox`` in order until ``None`` arrives."""
+def _serve(fn: Callable[[T], R], inbox: multiprocessing.Queue, outbox: multiprocessing.Queue,
+           parent: int) -> None:
+    """Worker process: apply ``fn`` to each item of ``inbox`` in order until ``None`` arrives,
+    or until the process ``parent`` that feeds it is gone (a killed build leaves no worker behind)."""
     while True:
-        item = inbox.get()
+        try:
+            item = inbox.get(timeout=1.0)
+        except queue.Empty:
+            try:
+                os.kill(parent, 0)
+            except ProcessLookupError:
+                return
+            continue
         if item is None:
             return
         try:
@@ -399,7 +408,8 @@ def ordered_map(fn: Callable[[T], R], items: Iterable[T], jobs: int,
     ctx = _context()
     inboxes = [ctx.Queue() for _ in range(jobs)]
     outboxes = [ctx.Queue() for _ in range(jobs)]
-    workers = [ctx.Process(target=_serve, args=(fn, inboxes[w], outboxes[w]), daemon=True) for w in range(jobs)]
+    workers = [ctx.Process(target=_serve, args=(fn, inboxes[w], outboxes[w], os.getpid()), daemon=True)
+               for w in range(jobs)]
     for worker in workers:
         worker.start()
     load = [0] * jobs

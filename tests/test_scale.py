@@ -6,9 +6,11 @@ from __future__ import annotations
 
 import hashlib
 import importlib
+import os
 import re
 import subprocess
 import sys
+import time
 import unicodedata
 from pathlib import Path
 
@@ -263,3 +265,36 @@ def test_a_word_level_build_never_imports_pandas(tmp_path: Path) -> None:
     done = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True)
     assert done.returncode == 0, done.stderr
     assert done.stdout.splitlines()[0] == "[]"
+
+
+def test_workers_exit_when_the_build_process_is_killed(tmp_path: Path) -> None:
+    # A killed build (SIGKILL: no clean-up runs) must not leave its worker processes behind.
+    (tmp_path / "feeder.py").write_text(
+        "import os, time\n"
+        "from bivocab.scan import ordered_map\n\n"
+        "def worker_pid(_):\n    return os.getpid()\n\n"
+        "def items():\n    yield 1\n    yield 2\n    time.sleep(120)\n    yield 3\n\n"
+        "if __name__ == '__main__':\n"
+        "    for pid in ordered_map(worker_pid, items(), 2):\n"
+        "        print(pid, flush=True)\n")
+    proc = subprocess.Popen([sys.executable, str(tmp_path / "feeder.py")], stdout=subprocess.PIPE, text=True,
+                            cwd=tmp_path, env={**os.environ, "PYTHONPATH": str(tmp_path)})
+    try:
+        pids = {int(proc.stdout.readline()), int(proc.stdout.readline())}
+    finally:
+        proc.kill()
+        proc.wait(timeout=30)
+    deadline = time.monotonic() + 20
+    alive = set(pids)
+    while alive and time.monotonic() < deadline:
+        time.sleep(0.2)
+        alive = {pid for pid in alive if _running(pid)}
+    assert not alive, f"worker processes {sorted(alive)} outlived the killed parent"
+
+
+def _running(pid: int) -> bool:
+    try:
+        with open(f"/proc/{pid}/stat") as handle:
+            return handle.read().rsplit(")", 1)[1].split()[0] != "Z"   # a zombie has exited
+    except FileNotFoundError:
+        return False

@@ -16,12 +16,10 @@ from __future__ import annotations
 import contextlib
 import time
 from dataclasses import dataclass, field
-from typing import Callable, Iterator
+from typing import TYPE_CHECKING, Any, Callable, Iterator
 
-from rich.console import Console
-from rich.progress import (BarColumn, Progress, ProgressColumn, Task, TaskID, TaskProgressColumn,
-                           TextColumn, TimeElapsedColumn)
-from rich.text import Text
+if TYPE_CHECKING:   # rich is loaded only when bars are drawn (about 30 ms a build need not wait for)
+    from rich.progress import Progress, TaskID
 
 Advance = Callable[..., None]
 
@@ -107,9 +105,12 @@ class BuildMeter:
 
     def _bar_display(self) -> Progress:
         if self._progress is None:
+            from rich.console import Console
+            from rich.progress import BarColumn, Progress, TaskProgressColumn, TextColumn, TimeElapsedColumn
+
             self._progress = Progress(
                 TextColumn("{task.description:<12}"), BarColumn(), TaskProgressColumn(),
-                _RateColumn(), TimeElapsedColumn(), console=Console(stderr=True))
+                _rate_column(), TimeElapsedColumn(), console=Console(stderr=True))
             self._progress.start()
         return self._progress
 
@@ -136,15 +137,21 @@ def _human_rate(rate: float, unit: str) -> str:
     return f"{rate:,.0f} {unit}/s"
 
 
-class _RateColumn(ProgressColumn):
-    """Throughput of a stage: words per second where known, else its own unit per second."""
+def _rate_column() -> Any:
+    """A rich column with the throughput of a stage: words per second where known, else its
+    own unit per second."""
+    from rich.progress import ProgressColumn, Task
+    from rich.text import Text
 
-    def render(self, task: Task) -> Text:
-        elapsed = task.elapsed or 0.0
-        if not elapsed:
-            return Text("")
-        words = task.fields.get("words", 0)
-        if words:
-            return Text(f"{words / elapsed / 1e6:.2f} M words/s")
-        unit = task.fields.get("unit", "")
-        return Text(_human_rate(task.completed / elapsed, unit) if unit else "")
+    class RateColumn(ProgressColumn):
+        def render(self, task: Task) -> Text:
+            elapsed = task.elapsed or 0.0
+            if not elapsed:
+                return Text("")
+            words = task.fields.get("words", 0)
+            if words:
+                return Text(f"{words / elapsed / 1e6:.2f} M words/s")
+            unit = task.fields.get("unit", "")
+            return Text(_human_rate(task.completed / elapsed, unit) if unit else "")
+
+    return RateColumn()

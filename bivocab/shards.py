@@ -19,7 +19,6 @@ import numpy as np
 import numpy.lib.format as npformat
 import pyarrow as pa
 import pyarrow.compute as pc
-import pyarrow.parquet as pq
 
 from .errors import BivocabError
 from .manifest import array_digest, atomic_open, complete_manifest, note_content, table_digest
@@ -101,6 +100,8 @@ class ShardWriter:
         if self.parquet:
             path = f"{stem}.parquet"
             table = parquet_table(tokens, offsets, langs, provenance, self.tags, self.input_paths)
+            import pyarrow.parquet as pq   # loaded by builds that write Parquet only
+
             with atomic_open(self.out / path) as handle:
                 pq.write_table(table, handle, row_group_size=PARQUET_ROW_GROUP, **PARQUET_OPTIONS)
             note_content(self.out / path, lambda: table_digest(table))
@@ -256,6 +257,8 @@ class ShardReader:
 
 def read_parquet_shard(path: Path, tags: tuple[str, ...]) -> Shard:
     """A Parquet shard as the three arrays of an npy shard."""
+    import pyarrow.parquet as pq
+
     table = pq.read_table(path, columns=["language", "ids"])
     ids = table.column("ids").combine_chunks()
     offsets = ids.offsets.to_numpy().astype(np.int64)

@@ -7,6 +7,7 @@ The rules (sample, models, merge, exported files, statistics) are documented in 
 from __future__ import annotations
 
 import csv
+import importlib
 import io
 import json
 import unicodedata
@@ -16,8 +17,6 @@ from pathlib import Path
 from typing import Any, Iterator, Sequence
 
 import numpy as np
-import sentencepiece as spm
-from sentencepiece import sentencepiece_model_pb2 as model_pb2
 
 from .errors import BivocabError
 from .mix import smoothed_probabilities
@@ -28,7 +27,23 @@ from .vocab import SHARED, Entry, EntryView, Vocabulary, special_tokens, tagged_
 
 BOUNDARY = "\u2581"                   # sentencepiece's visible space, written before a word
 SPACE, BYTE = "space", "byte"         # piece classes beyond the token classes
-_Piece = model_pb2.ModelProto.SentencePiece
+class _OnFirstUse:
+    """A module (or an attribute path in it) imported when first used: sentencepiece and its
+    protobuf classes cost a word-level build about 30 ms of start-up it has no use for."""
+
+    def __init__(self, module: str, *attributes: str) -> None:
+        self._module, self._attributes = module, attributes
+
+    def __getattr__(self, name: str) -> Any:
+        target = importlib.import_module(self._module)
+        for attribute in self._attributes:
+            target = getattr(target, attribute)
+        return getattr(target, name)
+
+
+spm = _OnFirstUse("sentencepiece")
+model_pb2 = _OnFirstUse("sentencepiece.sentencepiece_model_pb2")
+_Piece = _OnFirstUse("sentencepiece.sentencepiece_model_pb2", "ModelProto", "SentencePiece")
 _SALT = zlib.crc32(b"bivocab subword sample")   # separates this stream from the other seeded draws
 _ENCODE_BATCH = 20_000
 # Marks the string of another language's piece inside a per-language model file.  Cleaning turns

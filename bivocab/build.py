@@ -41,8 +41,8 @@ from .sources import InputFile, read_blocks
 from .splits import split_thresholds
 from .subword import (SentenceText, SubwordCondition, build_subword_condition, model_path, tokenizer_path,
                       unigram_tokenizer_json)
-from .vocab import (TypeIndex, Vocabulary, build_vocabulary, index_types, language_types_tsv, tokenizer_json,
-                    vocab_tsv)
+from .vocab import (TypeIndex, Vocabulary, build_vocabulary, index_types, language_types_tsv,
+                    same_tokenizer_for_every_language, tokenizer_json, vocab_tsv)
 
 
 # Bytes of text per scan block.  Larger blocks repeat more of their chunks, so a worker looks
@@ -530,8 +530,13 @@ class VocabFiles:
                         write_text(tokenizer_path(name, tag),
                                    lambda: unigram_tokenizer_json(model, vocab, li, self.clean))
             else:
+                texts: dict[int, str] = {}   # made once when every language's file is the same
+                same = same_tokenizer_for_every_language(vocab)
                 for li, tag in enumerate(tags):
-                    write_text(f"{name}/tokenizer.{tag}.json", lambda: tokenizer_json(vocab, li, self.clean))
+                    key = 0 if same else li
+                    if key not in texts:
+                        texts[key] = tokenizer_json(vocab, li, self.clean)
+                    write_text(f"{name}/tokenizer.{tag}.json", functools.partial(texts.__getitem__, key))
             advance(1)
         for li, (tag, (surfaces, counts)) in enumerate(zip(tags, self.types)):
             write_text(f"types/{tag}.tsv", lambda: language_types_tsv(surfaces, counts, self.type_index, li))

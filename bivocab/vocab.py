@@ -411,6 +411,13 @@ def tokenizer_doc(vocab: Vocabulary, lang_index: int, clean: CleanSpec) -> dict:
     return _tokenizer_doc(vocab, lang_index, clean, dict(zip(*_word_level_vocab(vocab, lang_index))))
 
 
+def same_tokenizer_for_every_language(vocab: Vocabulary) -> bool:
+    """Whether :func:`tokenizer_json` writes the same file for every language: every entry is
+    shared and the languages share their unknown (and end-of-sentence) ids."""
+    return (set(vocab.langs) <= {SHARED} and len(set(vocab.unk_ids)) == 1
+            and (vocab.eos_ids is None or len(set(vocab.eos_ids)) == 1))
+
+
 def _word_level_vocab(vocab: Vocabulary, lang_index: int) -> tuple[list[str], list[int]]:
     """The tokenizer vocabulary of one language in id order, as keys and ids: the surface (a
     special's is its token) of each entry the language can use, and its id."""

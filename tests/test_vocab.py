@@ -102,3 +102,19 @@ def test_capped_build_matches_an_independent_count(tiny):
     assert vocab["surface"].tolist()[3:] == [s for _, s in ranked]
     assert vocab["count"].tolist()[3:] == [c for c, _ in ranked]
     assert len(vocab) == 20
+
+
+@pytest.mark.parametrize("policy, specials", [
+    ("shared", {}), ("shared", {"unknown": "per-language"}), ("shared", {"eos": "per-language"}),
+    ("word-tagged", {}), ("fully-tagged", {})])
+def test_one_tokenizer_file_serves_every_language_only_when_their_files_are_identical(policy, specials) -> None:
+    # The build makes a tokenizer file once and writes it for every language when
+    # same_tokenizer_for_every_language holds: it must hold exactly when the files are equal.
+    from bivocab.recipe import CleanSpec
+    from bivocab.vocab import same_tokenizer_for_every_language, tokenizer_json
+
+    surfaces, counts = tables({"hand": 3, "kind": 1, ".": 4}, {"hand": 4, "Kind": 9, ".": 2})
+    vocab = build_vocabulary(condition(policy, **specials), ("en", "de"), surfaces, counts)
+    files = [tokenizer_json(vocab, li, CleanSpec()) for li in range(2)]
+    assert same_tokenizer_for_every_language(vocab) == (files[0] == files[1])
+    assert same_tokenizer_for_every_language(vocab) == (policy == "shared" and not specials)

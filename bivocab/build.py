@@ -25,10 +25,10 @@ import numpy as np
 from . import __version__
 from .errors import BivocabError, OutputError
 from .hygiene import prepare_hygiene
-from .manifest import (CONTROL_FILES, INCOMPLETE, LOCK, MANIFEST, WORK, atomic_open, atomic_write_text,
-                       background_digests, build_lock, canonical_json, check_inputs_unchanged, checkpoint,
-                       CONTENT_SCHEME, deferred_syncs, environment, file_record, fsync_dir, read_manifest, remove_temp_files,
-                       sha256_file, start_hashing_inputs, sync_files, write_error)
+from .manifest import (CONTENT_SCHEME, CONTROL_FILES, INCOMPLETE, LOCK, MANIFEST, WORK, atomic_open,
+                       atomic_write_text, background_digests, build_lock, canonical_json, check_inputs_unchanged,
+                       checkpoint, deferred_syncs, environment, file_record, fsync_dir, read_manifest,
+                       remove_temp_files, sha256_file, start_hashing_inputs, sync_files, write_error)
 from .mix import SplitOrder, mix_split
 from .recipe import SPLITS, Recipe, load_recipe
 from .gather import ShardBuckets

@@ -290,7 +290,11 @@ _WIDTHS = (1, 2, 4, 8)
 
 def content_scheme(manifest: dict[str, Any]) -> int:
     """The content digest scheme a build.json's ``content_sha256`` values were made with."""
-    return int(manifest.get("content_digest", 1))
+    scheme = manifest.get("content_digest", 1)
+    if scheme not in (1, CONTENT_SCHEME) or isinstance(scheme, bool):
+        raise OutputError(f"{MANIFEST}: content_digest {scheme!r} is not a scheme this version of bivocab "
+                          f"knows (1 or {CONTENT_SCHEME}); verify it with the version that built it")
+    return scheme
 
 
 def array_digest(array: np.ndarray, scheme: int = CONTENT_SCHEME) -> str:

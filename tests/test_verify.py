@@ -287,3 +287,12 @@ def test_audit_and_probe_outputs_in_the_build_directory_are_not_extra_files(copy
         (copy / name).mkdir()
         (copy / name / "summary.json").write_text("{}")
     assert verify(copy, hashes_only=True).ok
+
+
+def test_an_unknown_content_digest_scheme_is_a_one_line_error(copy: Path) -> None:
+    manifest = json.loads((copy / MANIFEST).read_text())
+    manifest["content_digest"] = 3
+    (copy / MANIFEST).write_text(json.dumps(manifest))
+    result = CliRunner().invoke(main, ["verify", str(copy), "--hashes-only"])
+    assert result.exit_code != 0 and "content_digest 3 is not a scheme" in result.output
+    assert result.output.count("\n") == 1 and "Traceback" not in result.output

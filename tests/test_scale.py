@@ -273,7 +273,9 @@ def test_workers_exit_when_the_build_process_is_killed(tmp_path: Path) -> None:
         "import os, time\n"
         "from bivocab.scan import ordered_map\n\n"
         "def worker_pid(_):\n    return os.getpid()\n\n"
-        "def items():\n    yield 1\n    yield 2\n    time.sleep(120)\n    yield 3\n\n"
+        # ordered_map hands out two items per worker before it yields a result: the first two
+        # results (one per worker) are printed once items 5 and 6 are taken; then it waits.
+        "def items():\n    yield from range(6)\n    time.sleep(120)\n    yield 6\n\n"
         "if __name__ == '__main__':\n"
         "    for pid in ordered_map(worker_pid, items(), 2):\n"
         "        print(pid, flush=True)\n")

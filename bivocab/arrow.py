@@ -33,7 +33,6 @@ def string_array(texts: list[str]) -> pa.Array:
     return pa.LargeStringArray.from_buffers(len(encoded), pa.py_buffer(offsets), pa.py_buffer(b"".join(encoded)))
 
 
-
 _NUMPY_TYPES = {pa.int8(): np.int8, pa.int16(): np.int16, pa.int32(): np.int32, pa.int64(): np.int64,
                 pa.uint8(): np.uint8, pa.uint16(): np.uint16, pa.uint32(): np.uint32, pa.uint64(): np.uint64}
 

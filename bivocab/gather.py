@@ -10,7 +10,6 @@ reads one region per language.
 from __future__ import annotations
 
 from concurrent.futures import ThreadPoolExecutor
-from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -20,25 +19,6 @@ from .scan import ragged_gather
 # Tokens read from the token file at a time during the copy into buckets (each chunk costs
 # about 16 bytes per token while it is copied, and two languages are copied at a time).
 CHUNK_TOKENS = 1 << 20
-
-
-@dataclass(frozen=True)
-class BucketRegion:
-    """One shard's sentences of one language in a bucket file: the file's type ids
-    ``first:last``, and each sentence's offset in that region and length."""
-
-    path: str
-    first: int
-    last: int
-    offsets: np.ndarray
-    lengths: np.ndarray | None
-
-    def tokens(self) -> np.ndarray:
-        """The sentences' type ids, one after the other (uint32)."""
-        if self.last == self.first:
-            return np.zeros(0, dtype=np.uint32)
-        region = np.fromfile(self.path, dtype=np.uint32, count=self.last - self.first, offset=4 * self.first)
-        return region[ragged_gather(self.offsets, self.lengths)]
 
 
 class ShardBuckets:
@@ -75,20 +55,16 @@ class ShardBuckets:
         self._paths = [f[3] for f in filled]
 
     def tokens(self, li: int, shard: int, rows: np.ndarray, lengths: np.ndarray) -> np.ndarray:
-        return self.region(li, shard, rows, lengths).tokens()
-
-    def region(self, li: int, shard: int, rows: np.ndarray, lengths: np.ndarray | None) -> BucketRegion:
-        """Where ``rows`` (all of the shard's sentences of language ``li``, in any order) lie in
-        the bucket file: something another process can read (it may add the lengths)."""
         lo, hi = int(self._bounds[li][shard]), int(self._bounds[li][shard + 1])
         if lo == hi:
-            return BucketRegion(str(self._paths[li]), 0, 0, np.zeros(0, np.int64), np.zeros(0, np.int64))
+            return np.zeros(0, dtype=np.uint32)
         first, last = int(self._local[li][lo]), int(self._local[li][hi])
-        # The bucket holds exactly these rows, sorted: each row's place is its rank among them.
+        region = np.fromfile(self._paths[li], dtype=np.uint32, count=last - first, offset=4 * first)
+        # ``rows`` are all of the shard's rows of this language, which the bucket holds sorted:
+        # each row's place there is its rank among them.
         at = np.empty(len(rows), dtype=np.int64)
         at[np.argsort(rows)] = np.arange(lo, hi)
-        return BucketRegion(str(self._paths[li]), first, last, self._local[li][at] - first,
-                            None if lengths is None else np.asarray(lengths, dtype=np.int64))
+        return region[ragged_gather(self._local[li][at] - first, lengths)]
 
     def remove(self) -> None:
         for path in self._paths:

@@ -33,8 +33,9 @@ from .mix import SplitOrder, mix_split
 from .recipe import SPLITS, Recipe, load_recipe
 from .gather import ShardBuckets
 from .progress import BuildMeter
+from .processes import start_worker_server
 from .scan import (ScanResult, ScanTask, TypeTable, WorkerTypeMaps, ordered_map, ragged_gather, release_tables,
-                   scan_block, start_worker_server)
+                   scan_block)
 from .resume import ShardJournal, build_fingerprint
 from .shards import PROVENANCE_DTYPE, ShardWriter, shard_stem, write_npy
 from .sources import InputFile, read_blocks

@@ -71,9 +71,9 @@ def check(recipe: Path) -> None:
 def build_command(recipe: Path, out: Path, jobs: int, force: bool, quiet: bool, resume: bool, profile: bool) -> None:
     """Build every condition of RECIPE into OUT."""
     if jobs > 1:
-        from .scan import start_worker_server
+        from .processes import start_worker_server
 
-        start_worker_server()   # the workers' modules load while this process loads the rest
+        start_worker_server()   # the workers' modules load while this process loads its own
     from .build import build
     from .progress import BuildMeter
     from .report import input_notes, summary_text

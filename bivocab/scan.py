@@ -17,7 +17,6 @@ from __future__ import annotations
 
 import gc
 import multiprocessing
-import multiprocessing.forkserver
 import os
 import queue
 import time
@@ -33,6 +32,7 @@ import pyarrow.compute as pc
 from .arrow import bool_numpy, int64_array, numpy_view
 from .clean import clean_block, clean_block_bytes
 from .errors import BivocabError
+from .processes import worker_context
 from .recipe import CleanSpec
 from .segment import LATIN_LETTERS, segment
 from .sources import Block
@@ -351,21 +351,6 @@ class WorkerTypeMaps:
         return lut[result.tokens] if len(result.tokens) else np.zeros(0, np.uint32)
 
 
-def _context() -> multiprocessing.context.BaseContext:
-    """Workers come from a fork server: cheap to start, and never a fork of a parent whose
-    library thread pools (pyarrow, tokenizers) are already running."""
-    ctx = multiprocessing.get_context("forkserver")
-    ctx.set_forkserver_preload(["bivocab.scan"])
-    return ctx
-
-
-def start_worker_server() -> None:
-    """Start the fork server now (it imports the scan modules while the caller goes on with
-    other work, e.g. hashing the inputs), so that the first workers start without waiting."""
-    _context()
-    multiprocessing.forkserver.ensure_running()
-
-
 def _serve(fn: Callable[[T], R], inbox: multiprocessing.Queue, outbox: multiprocessing.Queue,
            parent: int) -> None:
     """Worker process: apply ``fn`` to each item of ``inbox`` in order until ``None`` arrives,
@@ -405,7 +390,7 @@ def ordered_map(fn: Callable[[T], R], items: Iterable[T], jobs: int,
     if jobs <= 1:
         yield from map(fn, items)
         return
-    ctx = _context()
+    ctx = worker_context()
     inboxes = [ctx.Queue() for _ in range(jobs)]
     outboxes = [ctx.Queue() for _ in range(jobs)]
     workers = [ctx.Process(target=_serve, args=(fn, inboxes[w], outboxes[w], os.getpid()), daemon=True)

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 import pyarrow as pa
+import pyarrow.compute as pc
 
 
 def int64_array(values: np.ndarray) -> pa.Array:
@@ -22,15 +23,67 @@ def int64_array(values: np.ndarray) -> pa.Array:
 
 
 def string_array(texts: list[str]) -> pa.Array:
-    """An arrow (large) string array of Python strings.
+    """An arrow large string array of Python strings.
+
+    The strings are joined and encoded in one call each, and cut apart again with numpy at
+    the joins (one per-string encode when a string holds the joining character itself).
 
     >>> string_array(["a", "été", ""]).to_pylist()
     ['a', 'été', '']
+    >>> string_array(["a\\x00b", "c"]).to_pylist()
+    ['a\\x00b', 'c']
     """
-    encoded = [text.encode("utf-8") for text in texts]
-    offsets = np.zeros(len(encoded) + 1, dtype=np.int64)
-    np.cumsum(np.fromiter(map(len, encoded), dtype=np.int64, count=len(encoded)), out=offsets[1:])
-    return pa.LargeStringArray.from_buffers(len(encoded), pa.py_buffer(offsets), pa.py_buffer(b"".join(encoded)))
+    n = len(texts)
+    raw = np.frombuffer("\x00".join(texts).encode("utf-8"), dtype=np.uint8)
+    cuts = np.flatnonzero(raw == 0)
+    offsets = np.zeros(n + 1, dtype=np.int64)
+    if len(cuts) == max(n - 1, 0):
+        offsets[1:n] = cuts - np.arange(len(cuts))
+        offsets[n] = len(raw) - len(cuts)
+        data = np.delete(raw, cuts) if len(cuts) else raw
+    else:
+        encoded = [text.encode("utf-8") for text in texts]
+        np.cumsum(np.fromiter(map(len, encoded), dtype=np.int64, count=n), out=offsets[1:])
+        data = np.frombuffer(b"".join(encoded), dtype=np.uint8)
+    return pa.LargeStringArray.from_buffers(n, pa.py_buffer(offsets), pa.py_buffer(data))
+
+
+def strings_holding(values: pa.Array, chars: bytes) -> np.ndarray:
+    """Indices of the strings of ``values`` (a string array without nulls) that hold one of the
+    ASCII ``chars``, found by one numpy pass over the UTF-8 bytes (an ASCII byte is never part
+    of another character's encoding).
+
+    >>> strings_holding(string_array(["a", "b\\tc", "é", '"']).slice(1), b'\\t"').tolist()
+    [0, 2]
+    """
+    values = values.cast(pa.large_string())
+    _, offsets_buffer, data_buffer = values.buffers()
+    offsets = np.frombuffer(offsets_buffer, dtype=np.int64, count=len(values) + 1, offset=values.offset * 8)
+    if data_buffer is None or not len(values):
+        return np.zeros(0, dtype=np.int64)
+    wanted = np.zeros(256, dtype=np.bool_)
+    wanted[np.frombuffer(chars, dtype=np.uint8)] = True
+    data = np.frombuffer(data_buffer, dtype=np.uint8)[offsets[0]:offsets[-1]]
+    positions = np.flatnonzero(wanted[data]) + offsets[0]
+    return np.unique(np.searchsorted(offsets, positions, side="right") - 1)
+
+
+def string_scalar(text: str) -> pa.Scalar:
+    """An arrow large string scalar (``pyarrow.scalar`` of a str imports pandas, see above)."""
+    return string_array([text])[0]
+
+
+def joined_bytes(values: pa.Array, separator: str) -> bytes:
+    """The UTF-8 of a string array's values joined with ``separator``, made by arrow.
+
+    >>> joined_bytes(string_array(["a", "b", "c"]), ", ")
+    b'a, b, c'
+    """
+    lists = pa.LargeListArray.from_arrays(int64_array(np.array([0, len(values)])),
+                                          values.cast(pa.large_string()))
+    whole = pc.binary_join(lists, string_scalar(separator))
+    offsets = np.frombuffer(whole.buffers()[1], dtype=np.int64, count=2, offset=whole.offset * 8)
+    return whole.buffers()[2][int(offsets[0]):int(offsets[1])].to_pybytes() if offsets[1] > offsets[0] else b""
 
 
 _NUMPY_TYPES = {pa.int8(): np.int8, pa.int16(): np.int16, pa.int32(): np.int32, pa.int64(): np.int64,

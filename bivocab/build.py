@@ -515,7 +515,7 @@ class VocabFiles:
         out, tags = self.out, self.tags
         written = []
 
-        def write_text(path: str, make: Callable[[], str]) -> None:
+        def write_text(path: str, make: Callable[[], str | bytes]) -> None:
             atomic_write_text(out / path, make())
             written.append(path)
 

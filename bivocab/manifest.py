@@ -244,9 +244,10 @@ def sync_files(paths: Iterable[Path]) -> None:
             os.close(fd)
 
 
-def atomic_write_text(path: Path, text: str) -> None:
+def atomic_write_text(path: Path, text: str | bytes) -> None:
+    """Write ``text`` as UTF-8 (bytes are taken as already encoded) through :func:`atomic_open`."""
     with atomic_open(path, "wb") as handle:
-        handle.write(text.encode("utf-8"))
+        handle.write(text.encode("utf-8") if isinstance(text, str) else text)
 
 
 def canonical_json(data: Any) -> str:

@@ -12,7 +12,7 @@ from __future__ import annotations
 import csv
 import io
 import json
-from collections.abc import Iterable, Iterator, Sequence
+from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
 from itertools import compress
 from typing import Callable, overload
@@ -21,7 +21,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from .arrow import bool_numpy, int64_array, string_array
+from .arrow import bool_numpy, int64_array, joined_bytes, string_array, string_scalar, strings_holding
 from .errors import BivocabError
 from .recipe import ConditionSpec, CleanSpec
 from .segment import LATIN_LETTERS, NUMBER, PUNCT, SPECIAL, SYMBOL, WORD, pre_tokenizer_json, token_class
@@ -307,34 +307,36 @@ def _check_unique(condition: ConditionSpec, tokens: list[str], langs: list[str],
                 f"collides with entry ({langs[j]}, {surfaces[j]!r})")
 
 
-def vocab_tsv(vocab: Vocabulary) -> str:
-    """The vocab.tsv contract: ``id token surface lang class count count_<tag>...``."""
+def vocab_tsv(vocab: Vocabulary) -> bytes:
+    """The vocab.tsv contract: ``id token surface lang class count count_<tag>...`` (UTF-8)."""
     header = ["id", "token", "surface", "lang", "class", "count"] + [f"count_{t}" for t in vocab.tags]
     counts = vocab.counts
-    columns = [decimal_column(np.arange(len(vocab))), quote_column(vocab.tokens), quote_column(vocab.surfaces),
-               quote_column(vocab.langs), vocab.classes, decimal_column(counts.sum(axis=1)),
+    columns = [decimal_column(np.arange(len(vocab))), quote_column(string_array(vocab.tokens)),
+               quote_column(string_array(vocab.surfaces)), quote_column(string_array(vocab.langs)),
+               string_array(vocab.classes), decimal_column(counts.sum(axis=1)),
                *(decimal_column(column) for column in counts.T)]
     return tsv_columns(header, columns)
 
 
-def language_types_tsv(surfaces: list[str], split_counts: np.ndarray, index: TypeIndex, lang_index: int) -> str:
+def language_types_tsv(surfaces: list[str], split_counts: np.ndarray, index: TypeIndex, lang_index: int) -> bytes:
     """All token types of one language with their class and count per split (``split_counts``,
     train/valid/test by type id), sorted by the tie rule: train count descending, then code
-    points (``index`` ranks the surfaces)."""
+    points (``index`` ranks the surfaces); UTF-8."""
     order = np.lexsort((index.ranks[lang_index], -split_counts[0]))
-    columns = [quote_column(list(map(surfaces.__getitem__, order.tolist()))),
-               np.array(CLASS_NAMES, dtype=object)[index.classes[lang_index][order]].tolist(),
+    picked = int64_array(order)
+    columns = [quote_column(string_array(surfaces)).take(picked),
+               string_array(list(CLASS_NAMES)).take(int64_array(index.classes[lang_index][order])),
                *(decimal_column(split_counts[split, order]) for split in range(3))]
     return tsv_columns(["surface", "class", "count_train", "count_valid", "count_test"], columns)
 
 
-def decimal_column(values: np.ndarray) -> list[str]:
-    """Each integer as ``str`` writes it; arrow's cast formats the whole column in one call.
+def decimal_column(values: np.ndarray) -> pa.Array:
+    """Each integer as ``str`` writes it, as an arrow string column (one cast for the column).
 
-    >>> decimal_column(np.array([3, -1, 0, 12]))
+    >>> decimal_column(np.array([3, -1, 0, 12])).to_pylist()
     ['3', '-1', '0', '12']
     """
-    return pc.cast(int64_array(values), pa.string()).to_pylist()
+    return pc.cast(int64_array(values), pa.large_string())
 
 
 def tsv_text(header: list[str], rows: list[list[str]]) -> str:
@@ -347,59 +349,38 @@ def tsv_text(header: list[str], rows: list[list[str]]) -> str:
     return buffer.getvalue()
 
 
-# Characters that can make the csv module quote a field (delimiter, quote, line ends).
-_QUOTABLE = '\t"\r\n'
-
-
-def quote_column(values: list[str]) -> list[str]:
+def quote_column(values: pa.Array) -> pa.Array:
     """Each string as :func:`tsv_text` writes it within a row of several fields; the rare
-    strings that may need quoting are passed through the csv module itself.
+    strings that may need quoting (a tab, double quote or line end) go through the csv module
+    itself.
 
-    >>> quote_column(['Kai', 'a\\tb'])
+    >>> quote_column(string_array(['Kai', 'a\\tb'])).to_pylist()
     ['Kai', '"a\\tb"']
     """
-    return _rewrite_holding(values, _QUOTABLE, lambda value: tsv_text([value, ""], [])[:-2])
+    return _rewrite_holding(values, b'\t"\r\n', lambda value: tsv_text([value, ""], [])[:-2])
 
 
-# Joins a column for the character search; cleaned text never holds it (see tokenizer_doc's
-# normalizer), and the search still works, only slower, when a value does.
-_SEPARATOR = "\x7f"
+def _rewrite_holding(values: pa.Array, chars: bytes, rewrite: Callable[[str], str]) -> pa.Array:
+    """``values`` with ``rewrite`` applied to the few strings that hold one of the ASCII
+    ``chars`` (found by :func:`~bivocab.arrow.strings_holding`)."""
+    hits = strings_holding(values, chars)
+    if not len(hits):
+        return values
+    rewritten = string_array([rewrite(value) for value in values.take(int64_array(hits)).to_pylist()])
+    picks = np.arange(len(values), dtype=np.int64)
+    picks[hits] = len(values) + np.arange(len(hits))
+    return pa.concat_arrays([values.cast(pa.large_string()), rewritten]).take(int64_array(picks))
 
 
-def _rewrite_holding(values: Iterable[str], chars: str, rewrite: Callable[[str], str]) -> list[str]:
-    """``values`` with ``rewrite`` applied to the few that hold one of ``chars`` (not the
-    separator), found by str.find in the joined column, which runs at memory speed."""
-    out = list(values)
-    joined = _SEPARATOR.join(out)
-    positions = []
-    for char in chars:
-        at = joined.find(char)
-        while at >= 0:
-            positions.append(at)
-            at = joined.find(char, at + 1)
-    if not positions:
-        return out
-    positions.sort()
-    if joined.count(_SEPARATOR) == len(out) - 1:
-        # No value holds the separator: the separators before a position count the values before it.
-        indices, index, start = [], 0, 0
-        for at in positions:
-            index += joined.count(_SEPARATOR, start, at)
-            start = at
-            indices.append(index)
-    else:
-        starts_of_next = np.cumsum(np.fromiter(map(len, out), dtype=np.int64, count=len(out)) + 1)
-        indices = np.searchsorted(starts_of_next, positions, side="right").tolist()
-    for i in dict.fromkeys(indices):
-        out[i] = rewrite(out[i])
-    return out
-
-
-def tsv_columns(header: list[str], columns: list[list[str]]) -> str:
-    """:func:`tsv_text` of the rows formed by ``columns`` (at least two), whose string fields
-    went through :func:`quote_column` (fields of digits and class names never need it)."""
-    lines = [tsv_text(header, [])[:-1], *map("\t".join, zip(*columns))]
-    return "\n".join(lines) + "\n"
+def tsv_columns(header: list[str], columns: list[pa.Array]) -> bytes:
+    """:func:`tsv_text` (UTF-8) of the rows formed by ``columns`` (arrow string columns, at
+    least two), whose strings went through :func:`quote_column` (fields of digits and class
+    names never need it); the rows are joined by arrow."""
+    head = tsv_text(header, []).encode("utf-8")
+    if not len(columns[0]):
+        return head
+    rows = pc.binary_join_element_wise(*(c.cast(pa.large_string()) for c in columns), string_scalar("\t"))
+    return head + joined_bytes(rows, "\n") + b"\n"
 
 
 def tokenizer_doc(vocab: Vocabulary, lang_index: int, clean: CleanSpec) -> dict:
@@ -408,7 +389,8 @@ def tokenizer_doc(vocab: Vocabulary, lang_index: int, clean: CleanSpec) -> dict:
     Its normalizer repeats our cleaning (whitespace, normal form, case), its pre-tokenizer is our
     segmentation regex, and its post-processor appends the end-of-sentence token.
     """
-    return _tokenizer_doc(vocab, lang_index, clean, dict(zip(*_word_level_vocab(vocab, lang_index))))
+    keys, ids = _word_level_vocab(vocab, lang_index)
+    return _tokenizer_doc(vocab, lang_index, clean, dict(zip(keys.to_pylist(), ids.tolist())))
 
 
 def same_tokenizer_for_every_language(vocab: Vocabulary) -> bool:
@@ -418,16 +400,18 @@ def same_tokenizer_for_every_language(vocab: Vocabulary) -> bool:
             and (vocab.eos_ids is None or len(set(vocab.eos_ids)) == 1))
 
 
-def _word_level_vocab(vocab: Vocabulary, lang_index: int) -> tuple[list[str], list[int]]:
+def _word_level_vocab(vocab: Vocabulary, lang_index: int) -> tuple[pa.Array, np.ndarray]:
     """The tokenizer vocabulary of one language in id order, as keys and ids: the surface (a
     special's is its token) of each entry the language can use, and its id."""
-    ids = vocab.visible_ids(lang_index)
-    keys = list(map(vocab.surfaces.__getitem__, ids))
-    if len(set(keys)) < len(keys):
+    langs = string_array(vocab.langs)
+    visible = pc.is_in(langs, value_set=string_array([SHARED, vocab.tags[lang_index]]))
+    ids = np.flatnonzero(bool_numpy(visible)) if len(langs) else np.zeros(0, np.int64)
+    keys = string_array(vocab.surfaces).take(int64_array(ids))
+    if pc.count_distinct(keys).as_py() < len(keys):
         # As in a dict display, a repeated key keeps its first place but takes the last id;
         # then the entries go back into id order.
-        mapping = dict(sorted(dict(zip(keys, ids)).items(), key=lambda kv: kv[1]))
-        keys, ids = list(mapping), list(mapping.values())
+        mapping = dict(sorted(dict(zip(keys.to_pylist(), ids.tolist())).items(), key=lambda kv: kv[1]))
+        keys, ids = string_array(list(mapping)), np.array(list(mapping.values()), dtype=np.int64)
     return keys, ids
 
 
@@ -466,16 +450,16 @@ def _tokenizer_doc(vocab: Vocabulary, lang_index: int, clean: CleanSpec, mapping
 # Stands in for the vocabulary while the library writes the rest of the file.
 _VOCAB_PLACEHOLDER = "\x00bivocab-vocab\x00"
 # Characters that json.dumps(..., ensure_ascii=False) writes as an escape (json.encoder.ESCAPE).
-_JSON_ESCAPED = "".join(map(chr, range(0x20))) + '\\"'
+_JSON_ESCAPED = bytes(range(0x20)) + b'\\"'
 
 
-def tokenizer_json(vocab: Vocabulary, lang_index: int, clean: CleanSpec) -> str:
-    """The file text of :func:`tokenizer_doc`, exactly as ``tokenizers`` itself writes it.
+def tokenizer_json(vocab: Vocabulary, lang_index: int, clean: CleanSpec) -> bytes:
+    """The file (UTF-8) of :func:`tokenizer_doc`, exactly as ``tokenizers`` itself writes it.
 
     The library writes everything but the vocabulary (its pretty printer puts a WordLevel
     vocabulary one ``"token": id`` line each, in id order, with the JSON string escapes that
     ``json.dumps`` also uses); parsing and re-writing tens of thousands of entries through it
-    would cost more than the rest of the vocabulary stage.
+    would cost more than the rest of the vocabulary stage.  The lines are joined by arrow.
     """
     from tokenizers import Tokenizer
 
@@ -488,4 +472,6 @@ def tokenizer_json(vocab: Vocabulary, lang_index: int, clean: CleanSpec) -> str:
     indent = head[head.rfind("\n") + 1:]
     keys, ids = _word_level_vocab(vocab, lang_index)
     keys = _rewrite_holding(keys, _JSON_ESCAPED, lambda key: json.dumps(key, ensure_ascii=False)[1:-1])
-    return head + (",\n" + indent).join([f'"{key}": {i}' for key, i in zip(keys, ids)]) + tail
+    lines = pc.binary_join_element_wise(string_scalar('"'), keys, string_scalar('": '), decimal_column(ids),
+                                        string_scalar(""))
+    return head.encode("utf-8") + joined_bytes(lines, ",\n" + indent) + tail.encode("utf-8")

@@ -8,8 +8,11 @@ import unicodedata
 
 import numpy as np
 import pytest
+from hypothesis import given
+from hypothesis import strategies as st
 from tokenizers import Tokenizer
 
+from bivocab.arrow import joined_bytes, string_array, strings_holding
 from bivocab.recipe import POLICIES, CleanSpec, ConditionSpec, VocabSpec
 from bivocab.segment import token_class
 from bivocab.vocab import (SHARED, build_vocabulary, quote_column, tokenizer_doc, tokenizer_json, tsv_columns,
@@ -22,12 +25,25 @@ def test_column_writer_matches_the_csv_module_on_fields_that_need_quoting():
     # Reference: Python's csv module (QUOTE_MINIMAL, tab delimiter), as tsv_text uses it.
     rows = [[f, str(i), g] for i, (f, g) in enumerate(zip(TRICKY, reversed(TRICKY)))]
     expected = tsv_text(["a", "b", "c"], rows)
-    columns = [quote_column([r[0] for r in rows]), [r[1] for r in rows], quote_column([r[2] for r in rows])]
-    assert tsv_columns(["a", "b", "c"], columns) == expected
+    columns = [quote_column(string_array([r[0] for r in rows])), string_array([r[1] for r in rows]),
+               quote_column(string_array([r[2] for r in rows]))]
+    assert tsv_columns(["a", "b", "c"], columns) == expected.encode("utf-8")
 
 
 def test_column_writer_with_no_rows_writes_the_header_only():
-    assert tsv_columns(["surface", "count"], [[], []]) == "surface\tcount\n"
+    assert tsv_columns(["surface", "count"], [string_array([]), string_array([])]) == b"surface\tcount\n"
+
+
+@given(st.lists(st.text(alphabet=st.sampled_from(["a", "\x00", "\t", '"', "é", "𝔘", "\n", "\x7f"])) | st.text()),
+       st.integers(0, 3), st.sampled_from(["\n", ",\n  ", ""]))
+def test_arrow_string_columns_hold_the_strings_their_bytes_and_joins(values, start, separator):
+    # Reference: Python's own str operations (encode, join, `in`) on the same values.
+    column = string_array(values)
+    assert column.to_pylist() == values
+    sliced = column.slice(min(start, len(values)))
+    rest = values[min(start, len(values)):]
+    assert strings_holding(sliced, b'\t"\n').tolist() == [i for i, v in enumerate(rest) if set(v) & set('\t"\n')]
+    assert joined_bytes(sliced, separator) == separator.join(rest).encode("utf-8")
 
 
 def _reference_entries(cond: ConditionSpec, tags, surfaces, counts):
@@ -89,4 +105,4 @@ def test_tokenizer_file_is_what_the_tokenizers_library_writes_for_the_whole_docu
     for li in range(2):
         for clean in (CleanSpec(), CleanSpec(lowercase=True, normal_form="none")):
             doc = json.dumps(tokenizer_doc(vocab, li, clean), ensure_ascii=False)
-            assert tokenizer_json(vocab, li, clean) == Tokenizer.from_str(doc).to_str(pretty=True) + "\n"
+            assert tokenizer_json(vocab, li, clean).decode("utf-8") == Tokenizer.from_str(doc).to_str(pretty=True) + "\n"

@@ -14,6 +14,7 @@ from tokenizers import Tokenizer
 
 from bivocab.recipe import POLICIES, CleanSpec, ConditionSpec, VocabSpec
 from bivocab.segment import SPECIAL, token_class
+from bivocab.arrow import string_array
 from bivocab.vocab import (SHARED, build_vocabulary, decimal_column, index_types, language_types_tsv, quote_column,
                            tokenizer_doc, tokenizer_json, tsv_text, vocab_tsv)
 
@@ -68,7 +69,7 @@ def test_vocab_tsv_is_the_csv_module_writing_one_row_per_entry(vocab):
     rows = [[str(e.id), e.token, e.surface, e.lang, e.cls, str(sum(e.counts)), *map(str, e.counts)]
             for e in vocab.entries]
     header = ["id", "token", "surface", "lang", "class", "count", "count_en", "count_de"]
-    assert vocab_tsv(vocab) == tsv_text(header, rows)
+    assert vocab_tsv(vocab) == tsv_text(header, rows).encode("utf-8")
 
 
 @settings(max_examples=50, deadline=None)
@@ -88,18 +89,19 @@ def test_types_table_is_the_csv_module_writing_types_in_tie_rule_order(surfaces,
     order = sorted(range(len(surfaces)), key=lambda i: (-split_counts[0, i], surfaces[i]))
     rows = [[surfaces[i], token_class(surfaces[i]), *(str(c) for c in split_counts[:, i])] for i in order]
     expected = tsv_text(["surface", "class", "count_train", "count_valid", "count_test"], rows)
-    assert language_types_tsv(surfaces, split_counts, index_types([surfaces]), 0) == expected
+    assert language_types_tsv(surfaces, split_counts, index_types([surfaces]), 0) == expected.encode("utf-8")
 
 
-@pytest.mark.parametrize("values", [["a", "b\x7fc", 'd"', "\x7f"], ["\x7f\t", "x", "y\n"], ['"'] * 5])
-def test_quote_column_matches_the_csv_module_when_values_hold_the_search_separator(values):
+@pytest.mark.parametrize("values", [["a", "b\x00c", 'd"', "\x00"], ["\x00\t", "x", "y\n"], ['"'] * 5,
+                                    ["é\r", "𝔘", "\t\t", ""]])
+def test_quote_column_matches_the_csv_module_on_joining_characters_and_repeats(values):
     # Reference: Python's csv module writing each value as the first of two fields.
-    assert quote_column(values) == [tsv_text([v, ""], [])[:-2] for v in values]
+    assert quote_column(string_array(values)).to_pylist() == [tsv_text([v, ""], [])[:-2] for v in values]
 
 
 @given(st.lists(st.integers(-(1 << 63), (1 << 63) - 1)))
 def test_decimal_column_formats_integers_as_str_does(values):
-    assert decimal_column(np.array(values, dtype=np.int64)) == [str(v) for v in values]
+    assert decimal_column(np.array(values, dtype=np.int64)).to_pylist() == [str(v) for v in values]
 
 
 def test_a_surface_spelled_like_a_special_token_keeps_the_dict_rule_in_the_tokenizer_file():
@@ -113,7 +115,7 @@ def test_a_surface_spelled_like_a_special_token_keeps_the_dict_rule_in_the_token
     assert list(doc["model"]["vocab"].items()) == expected and len(expected) < len(vocab.visible(0))
     # Reference: the tokenizers library (PyPI) writing the whole document.
     whole = Tokenizer.from_str(json.dumps(doc, ensure_ascii=False)).to_str(pretty=True) + "\n"
-    assert tokenizer_json(vocab, 0, CleanSpec()) == whole
+    assert tokenizer_json(vocab, 0, CleanSpec()).decode("utf-8") == whole
 
 
 @settings(max_examples=200, deadline=None)

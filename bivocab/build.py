@@ -23,7 +23,7 @@ from typing import Any, Callable, Iterator
 import numpy as np
 
 from . import __version__
-from .errors import BivocabError, OutputError
+from .errors import BivocabError, LineError, OutputError
 from .hygiene import prepare_hygiene
 from .manifest import (CONTENT_SCHEME, CONTROL_FILES, INCOMPLETE, LOCK, MANIFEST, WORK, atomic_open,
                        atomic_write_text, background_digests, build_lock, canonical_json, check_inputs_unchanged,
@@ -38,7 +38,7 @@ from .scan import (ScanResult, ScanTask, TypeTable, WorkerTypeMaps, ordered_map,
                    scan_block)
 from .resume import ShardJournal, build_fingerprint
 from .shards import PROVENANCE_DTYPE, ShardWriter, shard_stem, write_npy
-from .sources import InputFile, read_blocks
+from .sources import COMPRESSION_SUFFIXES, InputFile, input_format, read_blocks, text_spans
 from .splits import split_thresholds
 from .subword import (SentenceText, SubwordCondition, build_subword_condition, model_path, tokenizer_path,
                       unigram_tokenizer_json)
@@ -237,6 +237,13 @@ def _remove_stale(out: Path, known: set[str], manifest: dict[str, Any]) -> None:
             parent = parent.parent
 
 
+def read_as_spans(source: InputFile) -> bool:
+    """Whether the scan workers read the input themselves (uncompressed text taken line by
+    line), so that its bytes never pass through the build process."""
+    return (input_format(source) == "text" and source.path.suffix.lower() not in COMPRESSION_SUFFIXES
+            and not source.read.split_sentences)
+
+
 def _scan_tasks(recipe: Recipe, files: list[InputFile], keep_text: bool) -> Iterator[ScanTask]:
     """Blocks of every input, the languages' streams interleaved block by block so that each
     worker can keep to one language (results do not depend on the interleaving: each language
@@ -248,7 +255,9 @@ def _scan_tasks(recipe: Recipe, files: list[InputFile], keep_text: bool) -> Iter
     def language_stream(tag: str) -> Iterator[ScanTask]:
         for index, source in enumerate(files):
             if source.language == tag:
-                for block in read_blocks(source, index, block_bytes=SCAN_BLOCK_BYTES):
+                blocks = (text_spans(source, index, SCAN_BLOCK_BYTES) if read_as_spans(source)
+                          else read_blocks(source, index, block_bytes=SCAN_BLOCK_BYTES))
+                for block in blocks:
                     yield ScanTask(block, source.display, tag, recipe.clean, recipe.seed, thresholds, session,
                                    keep_text)
 
@@ -260,6 +269,25 @@ def _scan_tasks(recipe: Recipe, files: list[InputFile], keep_text: bool) -> Iter
                 streams.remove(stream)
             else:
                 yield task
+
+
+def _in_file_lines(results: Iterator[ScanResult], files: list[InputFile],
+                   lines_before: list[int]) -> Iterator[ScanResult]:
+    """The scan's results with the line numbers of spans (counted from 1 in each span) made
+    file line numbers, in input order; a worker's error at a line of a span likewise."""
+    spans = {f.display: i for i, f in enumerate(files) if read_as_spans(f)}
+    try:
+        for result in results:
+            if result.span_lines is not None:
+                shift = lines_before[result.file_index]
+                lines_before[result.file_index] += result.span_lines
+                if shift:
+                    result = dataclasses.replace(result, line_numbers=result.line_numbers + shift)
+            yield result
+    except LineError as exc:
+        if exc.display in spans:
+            raise exc.shifted(lines_before[spans[exc.display]]) from None
+        raise
 
 
 class _WorkArrays:
@@ -334,8 +362,10 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
         type_maps = WorkerTypeMaps()
         # The sentences' text goes to the work directory only for hygiene and subword training.
         keep_text = hygiene.active or any(cond.units != "word" for cond in recipe.conditions)
-        for result in ordered_map(scan_block, _scan_tasks(recipe, files, keep_text), jobs,
-                                  affinity=lambda task: tags.index(task.language)):
+        lines_before = [0] * len(files)   # of the spans of each file merged so far
+        results = ordered_map(scan_block, _scan_tasks(recipe, files, keep_text), jobs,
+                              affinity=lambda task: tags.index(task.language))
+        for result in _in_file_lines(results, files, lines_before):
             started = time.perf_counter()
             li = lang_of_file[result.file_index]
             result = hygiene.filter_scan(result, li)

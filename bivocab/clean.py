@@ -18,7 +18,7 @@ from dataclasses import dataclass
 import numpy as np
 import pyarrow as pa
 
-from .errors import InputError
+from .errors import LineError
 from .recipe import CleanSpec
 from .sources import Block
 
@@ -178,8 +178,8 @@ def _decode(block: Block, spec: CleanSpec, display: str, counters: Counter) -> l
         if spec.invalid_utf8 == "error":
             line_start = block.data.rfind(b"\n", 0, exc.start) + 1
             line = block.line_number(block.data.count(b"\n", 0, exc.start))
-            raise InputError(
-                f"{display}:{line}: invalid UTF-8 at byte {exc.start - line_start} of the line "
+            raise LineError(
+                display, line, f"invalid UTF-8 at byte {exc.start - line_start} of the line "
                 f"(byte value 0x{block.data[exc.start]:02x}); set [clean] invalid_utf8 = "
                 f"\"replace\" or \"skip\" to accept it") from None
     out: list[str | None] = []

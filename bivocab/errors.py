@@ -17,6 +17,22 @@ class InputError(BivocabError):
     """An input file is missing, unreadable or holds data we refuse to guess about."""
 
 
+class LineError(InputError):
+    """An input problem at one line of a file, kept in parts so that a scan worker, which
+    counts the lines of its block from 1, can have the build add the lines before the block."""
+
+    def __init__(self, display: str, line: int, problem: str):
+        super().__init__(f"{display}:{line}: {problem}")
+        self.display, self.line, self.problem = display, line, problem
+
+    def __reduce__(self) -> tuple:   # pickled by its parts (a worker hands it to the build)
+        return (type(self), (self.display, self.line, self.problem))
+
+    def shifted(self, lines_before: int) -> LineError:
+        """The same problem, ``lines_before`` lines further down the file."""
+        return LineError(self.display, self.line + lines_before, self.problem)
+
+
 class OutputError(BivocabError):
     """The output directory cannot be used (foreign files, locked, unwritable, disk full)."""
 

@@ -35,7 +35,7 @@ from .errors import BivocabError
 from .processes import worker_context
 from .recipe import CleanSpec
 from .segment import LATIN_LETTERS, segment
-from .sources import Block
+from .sources import Block, FileSpan
 from .splits import assign_splits_utf8
 
 
@@ -63,7 +63,7 @@ MAX_CHUNKS = 2_000_000
 
 @dataclass(frozen=True)
 class ScanTask:
-    block: Block
+    block: Block | FileSpan     # a span is read by the worker itself
     display: str
     language: str
     clean: CleanSpec
@@ -87,6 +87,7 @@ class ScanResult:
     counters: Counter
     seconds: dict[str, float]   # worker time per step: clean, segment, splits
     bytes_read: int             # size of the block's raw data
+    span_lines: int | None = None   # for a span: its lines, numbered from 1 in line_numbers
 
 
 class _Growing:
@@ -242,19 +243,26 @@ def _lines_of(block: Block, clean: CleanSpec, display: str) -> tuple[bytes, np.n
             cleaned.counters)
 
 
+def _size(block: Block | FileSpan) -> int:
+    return block.end - block.start if isinstance(block, FileSpan) else len(block.data)
+
+
 def scan_block(task: ScanTask) -> ScanResult:
     """Clean and segment one block into arrays (see the module docstring)."""
     started = time.perf_counter()
     table = _table(task)
     if len(table.chunks) > MAX_CHUNKS:
         table.forget_chunks()
-    data, separators, text, numbers, counters = _lines_of(task.block, task.clean, task.display)
+    span = task.block if isinstance(task.block, FileSpan) else None
+    block = span.read() if span is not None else task.block
+    span_lines = block.line_count if span is not None else None
+    data, separators, text, numbers, counters = _lines_of(block, task.clean, task.display)
     cleaned_at = time.perf_counter()
     if not len(numbers):
         empty = np.zeros(0, dtype=np.int64)
-        return ScanResult(task.block.file_index, task.language, os.getpid(), table.unreported(),
+        return ScanResult(block.file_index, task.language, os.getpid(), table.unreported(),
                           np.zeros(0, np.uint32), empty, np.zeros(0, np.uint8), empty, "", counters,
-                          {"clean": cleaned_at - started}, len(task.block.data))
+                          {"clean": cleaned_at - started}, _size(task.block), span_lines)
     chunks, chunks_per_line = _chunk_array(data, separators)
     encoded = pc.dictionary_encode(chunks)
     distinct = encoded.dictionary.to_pylist()
@@ -300,10 +308,10 @@ def scan_block(task: ScanTask) -> ScanResult:
     counters["sentences_kept"] += len(lengths)
     counters["tokens_kept"] += int(lengths.sum())
     done = time.perf_counter()
-    return ScanResult(task.block.file_index, task.language, os.getpid(), table.unreported(), tokens,
+    return ScanResult(block.file_index, task.language, os.getpid(), table.unreported(), tokens,
                       lengths.astype(np.int64), splits, numbers, text if task.keep_text else "", counters,
                       {"clean": cleaned_at - started, "segment": segmented_at - cleaned_at,
-                       "splits": done - segmented_at}, len(task.block.data))
+                       "splits": done - segmented_at}, _size(task.block), span_lines)
 
 
 class TypeTable:

@@ -16,6 +16,7 @@ import hashlib
 import io
 import lzma
 import os
+import re
 import zlib
 from dataclasses import dataclass
 from pathlib import Path
@@ -250,6 +251,87 @@ def read_text_blocks(source: InputFile, file_index: int, block_bytes: int | None
             if at_end:
                 break
     check_unchanged(source, before)
+
+
+@dataclass(frozen=True)
+class FileSpan:
+    """Whole lines of an uncompressed text file, left on disk for a scan worker to read: the
+    bytes ``start`` to ``end`` of the file, the line break that ends the last line included.
+    :meth:`read` makes the :class:`Block` that :func:`read_text_blocks` would make of those
+    lines, except that its lines are numbered from 1: the build adds the lines of the spans
+    before it (see :class:`~bivocab.errors.LineError`)."""
+
+    file_index: int
+    path: Path
+    display: str
+    start: int
+    end: int
+
+    def read(self) -> Block:
+        try:
+            with open(self.path, "rb") as handle:
+                handle.seek(self.start)
+                raw = handle.read(self.end - self.start)
+        except OSError as exc:
+            raise InputError(f"{self.display}: cannot read input: {exc.strerror or exc}") from None
+        if len(raw) != self.end - self.start:
+            raise InputError(f"{self.display}: input file changed while it was being read; rebuild when it is stable")
+        bom = self.start == 0 and raw.startswith(BOM)
+        data = raw[len(BOM):] if bom else raw
+        if not data:
+            return Block(self.file_index, 1, b"", 0, bom)
+        last_cr = 0
+        if data.endswith(b"\r\n"):
+            data, last_cr = data[:-2], 1
+        elif data.endswith((b"\n", b"\r")):
+            last_cr = int(data.endswith(b"\r"))
+            data = data[:-1]
+        cr = 0
+        if b"\r" in data:
+            cr = data.count(b"\r")
+            data = data.replace(b"\r\n", b"\n").replace(b"\r", b"\n")
+        count = int(np.count_nonzero(np.frombuffer(data, dtype=np.uint8) == 10)) + 1   # bytes.count is slower
+        return Block(self.file_index, 1, data, count, bom, cr + last_cr)
+
+
+def text_spans(source: InputFile, file_index: int, block_bytes: int | None = None) -> Iterator[FileSpan]:
+    """An uncompressed text file as spans of whole lines of about ``block_bytes`` each, found
+    by reading only around each cut: the lines themselves are read by whoever reads a span."""
+    block_bytes = block_bytes or BLOCK_BYTES
+    try:
+        before = os.stat(source.path)
+    except OSError as exc:
+        raise InputError(f"{source.display}: cannot read input: {exc.strerror or exc}") from None
+    with open_binary(source.path, source.display) as handle:
+        start, size = 0, before.st_size
+        while start < size:
+            end = _after_line_break(handle, start + block_bytes - 1, size, source.display)
+            yield FileSpan(file_index, source.path, source.display, start, end)
+            start = end
+    check_unchanged(source, before)   # (and the build compares the inputs' state again after the scan)
+
+
+_LINE_BREAK = re.compile(rb"[\r\n]")
+
+
+def _after_line_break(handle: BinaryIO, at: int, size: int, display: str) -> int:
+    """The offset just past the first line break (LF, CRLF or a lone CR) that starts at or
+    after ``at``, or ``size`` when there is none."""
+    while at < size:
+        handle.seek(at)
+        window = _read(handle, 1 << 16, display)
+        if not window:
+            break
+        found = _LINE_BREAK.search(window)
+        if found is None:
+            at += len(window)
+            continue
+        at += found.start()
+        if window[found.start():found.start() + 1] == b"\r":
+            handle.seek(at + 1)
+            return at + 2 if _read(handle, 1, display) == b"\n" else at + 1
+        return at + 1
+    return size
 
 
 def check_unchanged(source: InputFile, before: os.stat_result) -> None:

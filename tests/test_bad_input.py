@@ -144,16 +144,17 @@ def _prepare(name: str, root: Path, monkeypatch: pytest.MonkeyPatch) -> Row:
         (root / "en" / "sub").mkdir()
         os.symlink("..", root / "en" / "sub" / "up")
     if name == "file-changes-while-read":
-        real = build_module.read_blocks
+        # Plain text is cut into spans that the workers read; other inputs are read in blocks.
+        real = build_module.text_spans
 
         def appending(source, index, *args, **kwargs):
-            for n, block in enumerate(real(source, index, *args, block_bytes=64)):
+            for n, span in enumerate(real(source, index, 64)):
                 if n == 1 and source.display == row.path:
                     with open(source.path, "ab") as handle:
                         handle.write(b"A late line.\n")
-                yield block
+                yield span
 
-        monkeypatch.setattr(build_module, "read_blocks", appending)
+        monkeypatch.setattr(build_module, "text_spans", appending)
     if name == "file-changes-after-hashing":
         real_start = build_module.start_hashing_inputs
 

@@ -14,7 +14,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from bivocab.recipe import CleanSpec
-from bivocab.sources import BOM, InputFile, read_blocks
+from bivocab.sources import BOM, InputFile, read_blocks, text_spans
 
 from fuzz.fuzz_targets import SUFFIXES, VALID_RECIPE, encode_as, parse_recipe, read_input
 
@@ -137,6 +137,23 @@ def test_block_reader_splits_lines_like_universal_newlines(data: bytes, block_by
     assert [b.first_line for b in blocks] == [1 + sum(b.line_count for b in blocks[:i]) for i in range(len(blocks))]
     assert sum(b.cr_line_ends for b in blocks) == body.count(b"\r")
     assert any(b.bom_removed for b in blocks) == (data.startswith(BOM) and bool(blocks))
+
+
+@settings(max_examples=400, deadline=None)
+@given(data=RAW, block_bytes=st.integers(1, 40))
+def test_spans_read_by_workers_hold_the_lines_of_the_block_reader(data: bytes, block_bytes: int,
+                                                                    workdir: Path) -> None:
+    # Reference: Python's bytes.splitlines() as above. A span's lines are numbered from 1; the
+    # build adds the lines of the spans before it.
+    path = workdir / "spans.txt"
+    path.write_bytes(data)
+    blocks = [span.read() for span in text_spans(InputFile(path, "spans.txt", "en"), 0, block_bytes)]
+    body = data[len(BOM):] if data.startswith(BOM) else data
+    assert [line for b in blocks if b.line_count for line in b.data.split(b"\n")] == body.splitlines()
+    assert all(b.first_line == 1 and b.line_count == (b.data.count(b"\n") + 1 if b.line_count else 0)
+               for b in blocks)
+    assert sum(b.cr_line_ends for b in blocks if b.line_count) == body.count(b"\r")
+    assert any(b.bom_removed for b in blocks if b.line_count) == (data.startswith(BOM) and bool(body))
 
 
 def test_atheris_harness_bounded_run_finds_no_crash() -> None:

@@ -28,7 +28,8 @@ from bivocab.progress import BuildMeter
 from bivocab.recipe import CleanSpec, SplitSpec
 from bivocab.scan import ScanTask, WorkerError, ordered_map, scan_block
 from bivocab.segment import segment
-from bivocab.sources import Block
+from bivocab.errors import LineError
+from bivocab.sources import BOM, Block
 from bivocab.splits import assign_splits, split_thresholds
 from conftest import write_corpus, write_recipe
 
@@ -67,6 +68,36 @@ def test_build_is_byte_identical_whatever_the_number_of_jobs(tmp_path: Path, sma
         trees.append(_tree(out))
     assert trees[0] == trees[1] == trees[2]
     assert any(name.endswith("tokens.npy") for name in trees[0])
+
+
+def test_workers_reading_their_own_spans_build_what_blocks_read_by_the_build_give(
+        tmp_path: Path, small_blocks: None, monkeypatch: pytest.MonkeyPatch) -> None:
+    # Line numbers (provenance), counters and every shard must not depend on who reads the text:
+    # a byte-order mark, CRLF and lone CR line ends, blank lines, spans of 2 KiB.
+    recipe = _corpus(tmp_path)
+    for tag, ending in (("en", b"\r\n"), ("de", b"\r")):
+        part = tmp_path / tag / "part.txt"
+        lines = part.read_bytes().split(b"\n")
+        lines[10:10] = [b"", b"", b"   "]
+        part.write_bytes((BOM if tag == "en" else b"") + ending.join(lines))
+    build(recipe, tmp_path / "spans", jobs=2)
+    monkeypatch.setattr(build_module, "read_as_spans", lambda source: False)
+    build(recipe, tmp_path / "blocks", jobs=2)
+    assert _tree(tmp_path / "spans") == _tree(tmp_path / "blocks")
+    lines = np.load(tmp_path / "spans" / "provenance" / "train" / "shard-00000.npy")["line"]
+    assert lines.max() > 1000   # numbered across many spans
+
+
+@pytest.mark.parametrize("jobs", [1, 2])
+def test_an_error_at_a_line_of_a_later_span_names_the_line_of_the_file(tmp_path: Path, small_blocks: None,
+                                                                       jobs: int) -> None:
+    recipe = _corpus(tmp_path)
+    part = tmp_path / "de" / "part.txt"
+    lines = part.read_bytes().split(b"\n")
+    lines[1233] = b"Kai \xff Boot"
+    part.write_bytes(b"\n".join(lines))
+    with pytest.raises(LineError, match=r"^de/part.txt:1234: invalid UTF-8 at byte 4 of the line"):
+        build(recipe, tmp_path / "out", jobs=jobs)
 
 
 def test_build_is_unchanged_when_workers_forget_their_chunks(tmp_path: Path, small_blocks: None,

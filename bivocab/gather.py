@@ -35,13 +35,22 @@ class ShardBuckets:
         def fill(li: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, Path]:
             mine = langs == li
             lang_rows, lang_shards = rows[mine], shard_of[mine]
-            order = np.lexsort((lang_rows, lang_shards))
+            # Entries by (shard, row): by row first (one sort), then a stable sort by shard
+            # (a radix sort of small integers); the second permutation also leads from the
+            # bucket order back to file order, which the copy needs.
+            by_row = np.argsort(lang_rows)
+            shard_width = np.uint16 if n_shards <= 1 << 16 else np.uint32
+            to_bucket = np.argsort(lang_shards[by_row].astype(shard_width), kind="stable")
+            order = by_row[to_bucket]
             sorted_rows, sorted_shards = lang_rows[order], lang_shards[order]
+            in_file_order = np.empty(len(order), dtype=np.int64)
+            in_file_order[to_bucket] = np.arange(len(order))
             sizes = np.asarray(lengths[li])[sorted_rows].astype(np.int64)
             local = np.zeros(len(sizes) + 1, dtype=np.int64)
             np.cumsum(sizes, out=local[1:])
             bucket = work / f"bucket.{split}.{li}.bin"
-            _copy_into_bucket(token_paths[li], bucket, sorted_rows, local[:-1], sizes, np.asarray(starts[li]))
+            _copy_into_bucket(token_paths[li], bucket, sorted_rows, local[:-1], sizes, np.asarray(starts[li]),
+                              in_file_order)
             return sorted_rows, np.searchsorted(sorted_shards, np.arange(n_shards + 1)), local, bucket
 
         if threads > 1 and len(token_paths) > 1:
@@ -72,10 +81,10 @@ class ShardBuckets:
 
 
 def _copy_into_bucket(token_path: Path, bucket: Path, rows: np.ndarray, local: np.ndarray, sizes: np.ndarray,
-                      starts: np.ndarray) -> None:
+                      starts: np.ndarray, by_row: np.ndarray) -> None:
     """Write each entry's tokens (``rows[i]``, ``sizes[i]`` tokens) at bucket offset ``local[i]``,
-    reading the token file once, in order, a chunk at a time."""
-    by_row = np.argsort(rows)        # entries in file order (rows are distinct: no ties)
+    reading the token file once, in order, a chunk at a time; ``by_row`` lists the entries in
+    file order (ascending rows)."""
     file_starts = starts[rows[by_row]]
     with open(bucket, "wb") as out:
         out.truncate(4 * int(sizes.sum()))

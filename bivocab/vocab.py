@@ -21,7 +21,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from .arrow import bool_numpy, int64_array, joined_bytes, string_array, string_scalar, strings_holding
+from .arrow import bool_numpy, int64_array, joined_bytes, numpy_view, string_array, string_scalar, strings_holding
 from .errors import BivocabError
 from .recipe import ConditionSpec, CleanSpec
 from .segment import LATIN_LETTERS, NUMBER, PUNCT, SPECIAL, SYMBOL, WORD, pre_tokenizer_json, token_class
@@ -180,14 +180,19 @@ class TypeIndex:
     ranks: tuple[np.ndarray, ...]
     by_rank: np.ndarray             # rank -> surface (an object array, so that numpy can gather surfaces)
     class_by_rank: np.ndarray       # rank -> class index
+    # rank -> whether the surface holds "@" or "<": only such a surface can be exported as the
+    # same token as another entry (a tagged token is surface@tag; specials are <...>)
+    may_clash: np.ndarray | None = None
 
 
-def _classify(types: list[str]) -> np.ndarray:
+def _classify(types: list[str], column: pa.Array | None = None) -> np.ndarray:
     """:func:`token_class` of every type, as an index into CLASS_NAMES: a type holding a Latin
-    letter is a word (one vectorised match for most of them), the others are asked one by one."""
+    letter is a word (one vectorised match for most of them), the others are asked one by one.
+    ``column``: the types as an arrow string array, when already made."""
     code = {name: i for i, name in enumerate(CLASS_NAMES)}
     classes = np.full(len(types), code[WORD], dtype=np.uint8)
-    latin = pc.match_substring_regex(string_array(types), f"[{LATIN_LETTERS}]")
+    column = string_array(types) if column is None else column
+    latin = pc.match_substring_regex(column, f"[{LATIN_LETTERS}]")
     others = np.flatnonzero(~bool_numpy(latin)) if len(types) else np.zeros(0, np.int64)
     classes[others] = np.fromiter((code[token_class(types[i])] for i in others.tolist()), dtype=np.uint8,
                                   count=len(others))
@@ -195,17 +200,21 @@ def _classify(types: list[str]) -> np.ndarray:
 
 
 def index_types(surfaces: list[list[str]]) -> TypeIndex:
-    """Classify and rank each language's types once (the costly per-type Python work)."""
-    classes = tuple(_classify(types) for types in surfaces)
-    ordered = sorted(set().union(*surfaces))
-    rank = dict(zip(ordered, range(len(ordered))))
-    ranks = tuple(np.fromiter(map(rank.__getitem__, types), dtype=np.int64, count=len(types)) for types in surfaces)
+    """Classify and rank each language's types once (the costly per-type Python work).  The
+    ranks come from arrow: its sort of UTF-8 strings is byte order, which is code point order."""
+    columns = [string_array(types) for types in surfaces]
+    classes = tuple(_classify(types, column) for types, column in zip(surfaces, columns))
+    distinct = pc.unique(pa.chunked_array(columns, type=pa.large_string()))
+    ordered = distinct.take(pc.sort_indices(distinct))
+    ranks = tuple(numpy_view(pc.index_in(column, value_set=ordered)).astype(np.int64) if len(column)
+                  else np.zeros(0, np.int64) for column in columns)
     by_rank = np.empty(len(ordered), dtype=object)
-    by_rank[:] = ordered
+    by_rank[:] = ordered.to_pylist()
     class_by_rank = np.zeros(len(by_rank), dtype=np.uint8)
     for c, r in zip(classes, ranks):
         class_by_rank[r] = c
-    return TypeIndex(classes, ranks, by_rank, class_by_rank)
+    may_clash = bool_numpy(pc.match_substring_regex(ordered, "[@<]")) if len(ordered) else np.zeros(0, bool)
+    return TypeIndex(classes, ranks, by_rank, class_by_rank, may_clash)
 
 
 def _shared_mask(condition: ConditionSpec, types: list[str], classes: np.ndarray) -> np.ndarray:
@@ -251,7 +260,14 @@ def build_vocabulary(condition: ConditionSpec, tags: tuple[str, ...], surfaces: 
     spec = condition.vocab
     chosen = np.flatnonzero((totals > 0) & (totals >= spec.min_count))
     # Tie rule (DESIGN.md section 6): count descending, then code points of the surface, then language.
-    chosen = chosen[np.lexsort((keys[chosen], -totals[chosen]))]
+    # Entry keys are distinct: when a count and a key fit in one int64 side by side, one sort
+    # of that number gives the order (faster than lexsort), else lexsort.
+    key_bits = int(keys.max(initial=0)).bit_length()
+    top = int(totals.max(initial=0))
+    if key_bits + top.bit_length() < 63:
+        chosen = chosen[np.argsort(((top - totals[chosen]) << key_bits) + keys[chosen])]
+    else:
+        chosen = chosen[np.lexsort((keys[chosen], -totals[chosen]))]
     specials = special_tokens(tags, spec.unknown, spec.eos, spec.pad)
     if spec.max_size:
         if spec.max_size <= len(specials):
@@ -270,7 +286,8 @@ def build_vocabulary(condition: ConditionSpec, tags: tuple[str, ...], surfaces: 
     suffixes = np.array(["", *(tagged_token("", t) for t in tags)], dtype=object)
     tokens = special_names + (chosen_surfaces + suffixes[lang_codes]).tolist()
     langs = [lang for _, lang in specials] + np.array([SHARED, *tags], dtype=object)[lang_codes].tolist()
-    _check_unique(condition, tokens, langs, entry_surfaces)
+    if index.may_clash is None or index.may_clash[ranks].any():
+        _check_unique(condition, tokens, langs, entry_surfaces)
     classes = [SPECIAL] * len(specials) + np.array(CLASS_NAMES, dtype=object)[index.class_by_rank[ranks]].tolist()
     entry_counts = np.zeros((len(tokens), n_lang), dtype=np.int64)
     entry_counts[len(specials):] = counts[chosen]

@@ -65,6 +65,18 @@ def _reference_entries(cond: ConditionSpec, tags, surfaces, counts):
     return [(lang, s, tuple(totals[(lang, s)])) for lang, s in chosen]
 
 
+@pytest.mark.parametrize("scale", [1, 1 << 58])
+def test_entry_order_holds_for_counts_too_large_to_share_a_sort_key_with_the_surface(scale):
+    # The order by (count, surface, language) is one int64 sort when both fit, else lexsort.
+    surfaces = [["Boot", "Kai", "hand", "7", ".", "<x", "a@x"], ["Boot", "Kai", "Hand", "8", ".", "Kind"]]
+    counts = [np.array([3, 3, 2, 5, 9, 1, 2], np.int64) * scale, np.array([1, 3, 2, 5, 4, 2], np.int64) * scale]
+    for policy in sorted(POLICIES):
+        cond = ConditionSpec(name="c", policy=policy, classes=dict(POLICIES[policy]), vocab=VocabSpec())
+        vocab = build_vocabulary(cond, ("en", "de"), surfaces, counts)
+        got = [(e.lang, e.surface, e.counts) for e in vocab.entries[vocab.special_count:]]
+        assert got == _reference_entries(cond, ("en", "de"), surfaces, counts)
+
+
 @pytest.mark.parametrize("policy", sorted(POLICIES))
 @pytest.mark.parametrize("seed", [1, 2, 3])
 def test_array_vocabulary_matches_the_entry_by_entry_rule(policy, seed):

@@ -61,10 +61,15 @@ def strings_holding(values: pa.Array, chars: bytes) -> np.ndarray:
     offsets = np.frombuffer(offsets_buffer, dtype=np.int64, count=len(values) + 1, offset=values.offset * 8)
     if data_buffer is None or not len(values):
         return np.zeros(0, dtype=np.int64)
-    wanted = np.zeros(256, dtype=np.bool_)
-    wanted[np.frombuffer(chars, dtype=np.uint8)] = True
     data = np.frombuffer(data_buffer, dtype=np.uint8)[offsets[0]:offsets[-1]]
-    positions = np.flatnonzero(wanted[data]) + offsets[0]
+    codes = sorted(set(chars))
+    below = 0       # the codes 0, 1, ... below this are all wanted: one comparison for them
+    while below < len(codes) and codes[below] == below:
+        below += 1
+    found = data < below
+    for code in codes[below:]:
+        found |= data == code
+    positions = np.flatnonzero(found) + offsets[0]
     return np.unique(np.searchsorted(offsets, positions, side="right") - 1)
 
 

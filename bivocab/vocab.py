@@ -13,7 +13,7 @@ import csv
 import io
 import json
 from collections.abc import Iterator, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from itertools import compress
 from typing import Callable, overload
 
@@ -60,6 +60,9 @@ class Vocabulary:
     eos_ids: tuple[int, ...] | None     # per language, or None without an end-of-sentence token
     pad_id: int | None
     luts: tuple[np.ndarray, ...]        # per language: type id -> vocabulary id
+    # The string columns as arrow arrays, made by build_vocabulary from the type index, so
+    # that writing the vocabulary files converts no Python strings (None: made when needed).
+    columns: VocabColumns | None = field(default=None, compare=False, repr=False)
 
     def __len__(self) -> int:
         return len(self.tokens)
@@ -84,6 +87,26 @@ class Vocabulary:
         """Entries a sentence of this language can be encoded to (shared + its own)."""
         tag = self.tags[lang_index]
         return [e for e in self.entries if e.lang in (SHARED, tag)]
+
+
+@dataclass(frozen=True)
+class VocabColumns:
+    """A vocabulary's tokens, surfaces, languages and classes as arrow string arrays (id order)."""
+
+    tokens: pa.Array
+    surfaces: pa.Array
+    langs: pa.Array
+    classes: pa.Array
+    # False when no two entries a language can use may share a surface (no surface holds "<",
+    # so none is spelled like a special token): the tokenizer file then needs no duplicate check.
+    may_repeat_keys: bool = True
+
+    @staticmethod
+    def of(vocab: Vocabulary) -> VocabColumns:
+        if vocab.columns is not None:
+            return vocab.columns
+        return VocabColumns(string_array(vocab.tokens), string_array(vocab.surfaces), string_array(vocab.langs),
+                            string_array(vocab.classes))
 
 
 class EntryView(Sequence[Entry]):
@@ -183,6 +206,7 @@ class TypeIndex:
     # rank -> whether the surface holds "@" or "<": only such a surface can be exported as the
     # same token as another entry (a tagged token is surface@tag; specials are <...>)
     may_clash: np.ndarray | None = None
+    ordered: pa.Array | None = None     # rank -> surface, as an arrow string array
 
 
 def _classify(types: list[str], column: pa.Array | None = None) -> np.ndarray:
@@ -214,7 +238,23 @@ def index_types(surfaces: list[list[str]]) -> TypeIndex:
     for c, r in zip(classes, ranks):
         class_by_rank[r] = c
     may_clash = bool_numpy(pc.match_substring_regex(ordered, "[@<]")) if len(ordered) else np.zeros(0, bool)
-    return TypeIndex(classes, ranks, by_rank, class_by_rank, may_clash)
+    return TypeIndex(classes, ranks, by_rank, class_by_rank, may_clash, ordered)
+
+
+def count_order(counts: np.ndarray, keys: np.ndarray) -> np.ndarray:
+    """The permutation that sorts by count descending, then by key (distinct, >= 0) ascending.
+    When a count and a key fit side by side in one int64, one sort of that number gives the
+    order (faster than lexsort); else lexsort.
+
+    >>> count_order(np.array([2, 5, 2]), np.array([9, 4, 1])).tolist()
+    [1, 2, 0]
+    """
+    counts, keys = np.asarray(counts, dtype=np.int64), np.asarray(keys, dtype=np.int64)
+    key_bits = int(keys.max(initial=0)).bit_length()
+    top = int(counts.max(initial=0))
+    if key_bits + top.bit_length() < 63:
+        return np.argsort(((top - counts) << key_bits) + keys)
+    return np.lexsort((keys, -counts))
 
 
 def _shared_mask(condition: ConditionSpec, types: list[str], classes: np.ndarray) -> np.ndarray:
@@ -260,14 +300,7 @@ def build_vocabulary(condition: ConditionSpec, tags: tuple[str, ...], surfaces: 
     spec = condition.vocab
     chosen = np.flatnonzero((totals > 0) & (totals >= spec.min_count))
     # Tie rule (DESIGN.md section 6): count descending, then code points of the surface, then language.
-    # Entry keys are distinct: when a count and a key fit in one int64 side by side, one sort
-    # of that number gives the order (faster than lexsort), else lexsort.
-    key_bits = int(keys.max(initial=0)).bit_length()
-    top = int(totals.max(initial=0))
-    if key_bits + top.bit_length() < 63:
-        chosen = chosen[np.argsort(((top - totals[chosen]) << key_bits) + keys[chosen])]
-    else:
-        chosen = chosen[np.lexsort((keys[chosen], -totals[chosen]))]
+    chosen = chosen[count_order(totals[chosen], keys[chosen])]
     specials = special_tokens(tags, spec.unknown, spec.eos, spec.pad)
     if spec.max_size:
         if spec.max_size <= len(specials):
@@ -298,6 +331,19 @@ def build_vocabulary(condition: ConditionSpec, tags: tuple[str, ...], surfaces: 
         eos_ids = None
     else:
         eos_ids = tuple(special_ids["<eos>"] if spec.eos == "shared" else special_ids[f"<eos:{t}>"] for t in tags)
+    columns = None
+    if index.ordered is not None:
+        picked = index.ordered.take(int64_array(ranks))
+        codes = int64_array(lang_codes)
+        head = string_array(special_names)
+        columns = VocabColumns(
+            pa.concat_arrays([head, pc.binary_join_element_wise(picked, string_array(list(suffixes)).take(codes),
+                                                                string_scalar(""))]),
+            pa.concat_arrays([head, picked]),
+            pa.concat_arrays([string_array(langs[:len(specials)]), string_array([SHARED, *tags]).take(codes)]),
+            pa.concat_arrays([string_array(classes[:len(specials)]),
+                              string_array(list(CLASS_NAMES)).take(int64_array(index.class_by_rank[ranks]))]),
+            may_repeat_keys=index.may_clash is None or bool(index.may_clash[ranks].any()))
     dtype = np.uint16 if len(tokens) <= 1 << 16 else np.uint32
     id_of_key = np.full(len(keys), -1, dtype=np.int64)
     id_of_key[chosen] = np.arange(len(specials), len(specials) + len(chosen))
@@ -308,7 +354,7 @@ def build_vocabulary(condition: ConditionSpec, tags: tuple[str, ...], surfaces: 
         start += len(type_keys[li])
         luts.append(np.where(ids < 0, unk_ids[li], ids).astype(dtype))
     return Vocabulary(condition.name, tags, tokens, entry_surfaces, langs, classes, entry_counts, unk_ids, eos_ids,
-                      special_ids.get("<pad>"), tuple(luts))
+                      special_ids.get("<pad>"), tuple(luts), columns)
 
 
 def _check_unique(condition: ConditionSpec, tokens: list[str], langs: list[str], surfaces: list[str]) -> None:
@@ -328,9 +374,9 @@ def vocab_tsv(vocab: Vocabulary) -> bytes:
     """The vocab.tsv contract: ``id token surface lang class count count_<tag>...`` (UTF-8)."""
     header = ["id", "token", "surface", "lang", "class", "count"] + [f"count_{t}" for t in vocab.tags]
     counts = vocab.counts
-    columns = [decimal_column(np.arange(len(vocab))), quote_column(string_array(vocab.tokens)),
-               quote_column(string_array(vocab.surfaces)), quote_column(string_array(vocab.langs)),
-               string_array(vocab.classes), decimal_column(counts.sum(axis=1)),
+    strings = VocabColumns.of(vocab)
+    columns = [decimal_column(np.arange(len(vocab))), quote_column(strings.tokens), quote_column(strings.surfaces),
+               quote_column(strings.langs), strings.classes, decimal_column(counts.sum(axis=1)),
                *(decimal_column(column) for column in counts.T)]
     return tsv_columns(header, columns)
 
@@ -339,9 +385,11 @@ def language_types_tsv(surfaces: list[str], split_counts: np.ndarray, index: Typ
     """All token types of one language with their class and count per split (``split_counts``,
     train/valid/test by type id), sorted by the tie rule: train count descending, then code
     points (``index`` ranks the surfaces); UTF-8."""
-    order = np.lexsort((index.ranks[lang_index], -split_counts[0]))
+    order = count_order(split_counts[0], index.ranks[lang_index])
     picked = int64_array(order)
-    columns = [quote_column(string_array(surfaces)).take(picked),
+    column = (string_array(surfaces) if index.ordered is None
+              else index.ordered.take(int64_array(index.ranks[lang_index])))
+    columns = [quote_column(column).take(picked),
                string_array(list(CLASS_NAMES)).take(int64_array(index.classes[lang_index][order])),
                *(decimal_column(split_counts[split, order]) for split in range(3))]
     return tsv_columns(["surface", "class", "count_train", "count_valid", "count_test"], columns)
@@ -420,11 +468,11 @@ def same_tokenizer_for_every_language(vocab: Vocabulary) -> bool:
 def _word_level_vocab(vocab: Vocabulary, lang_index: int) -> tuple[pa.Array, np.ndarray]:
     """The tokenizer vocabulary of one language in id order, as keys and ids: the surface (a
     special's is its token) of each entry the language can use, and its id."""
-    langs = string_array(vocab.langs)
-    visible = pc.is_in(langs, value_set=string_array([SHARED, vocab.tags[lang_index]]))
-    ids = np.flatnonzero(bool_numpy(visible)) if len(langs) else np.zeros(0, np.int64)
-    keys = string_array(vocab.surfaces).take(int64_array(ids))
-    if pc.count_distinct(keys).as_py() < len(keys):
+    strings = VocabColumns.of(vocab)
+    visible = pc.is_in(strings.langs, value_set=string_array([SHARED, vocab.tags[lang_index]]))
+    ids = np.flatnonzero(bool_numpy(visible)) if len(strings.langs) else np.zeros(0, np.int64)
+    keys = strings.surfaces.take(int64_array(ids))
+    if strings.may_repeat_keys and pc.count_distinct(keys).as_py() < len(keys):
         # As in a dict display, a repeated key keeps its first place but takes the last id;
         # then the entries go back into id order.
         mapping = dict(sorted(dict(zip(keys.to_pylist(), ids.tolist())).items(), key=lambda kv: kv[1]))

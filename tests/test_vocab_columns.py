@@ -43,6 +43,8 @@ def test_arrow_string_columns_hold_the_strings_their_bytes_and_joins(values, sta
     sliced = column.slice(min(start, len(values)))
     rest = values[min(start, len(values)):]
     assert strings_holding(sliced, b'\t"\n').tolist() == [i for i, v in enumerate(rest) if set(v) & set('\t"\n')]
+    escaped = bytes(range(0x20)) + b'\\"'
+    assert strings_holding(sliced, escaped).tolist() == [i for i, v in enumerate(rest) if set(v.encode()) & set(escaped)]
     assert joined_bytes(sliced, separator) == separator.join(rest).encode("utf-8")
 
 

@@ -611,7 +611,9 @@ def _write_shard(writer: ShardWriter, recipe: Recipe, vocabs: list[Vocabulary],
             layout = ShardLayout(langs, [(mask, *sub.gather(li, rows_here[mask]))
                                          for li, (mask, _, _) in enumerate(gathered)], eos)
         shard_stats[cond.name] = layout.stats(vocab)
-        writer.write(f"{cond.name}/{stem}", layout.encode(vocab), layout.offsets, layout.langs, prov)
+        writer.write(f"{cond.name}/{stem}", layout.encode(vocab), layout.offsets, layout.langs, prov,
+                     twin=layout.written_as)
+        layout.written_as = layout.written_as or f"{cond.name}/{stem}"
     journal.record(stem, paths, shard_stats)
     return shard_stats
 
@@ -638,6 +640,9 @@ class ShardLayout:
         self._gathered = [(mask, lengths) for mask, lengths, _ in gathered]
         self._placed: tuple[tuple[int, ...], int] | None = None   # the table layout ``index`` points into
         self._type_counts: dict[tuple[int, int], np.ndarray] = {}
+        # The first condition's shard written with this layout: its offsets and langs files
+        # are the same bytes as every later one's.
+        self.written_as: str | None = None
 
     def _place(self, bases: list[int], eos_base: int) -> None:
         for li, ((mask, lengths), types) in enumerate(zip(self._gathered, self.lang_types)):

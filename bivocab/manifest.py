@@ -92,14 +92,16 @@ class _HashingWriter:
     this process wrote needs no second read.  Seeking is refused: a writer that rewrote earlier
     bytes would make the running digest wrong."""
 
-    def __init__(self, raw: IO[bytes]):
+    def __init__(self, raw: IO[bytes], hashed: bool = True):
         self.raw = raw
         self.digest = hashlib.sha256()
+        self.hashed = hashed    # False: the bytes are only counted (their digest is known)
         self.size = 0
 
     def write(self, data: Any) -> int:
         view = memoryview(data).cast("B")
-        self.digest.update(view)
+        if self.hashed:
+            self.digest.update(view)
         self.size += view.nbytes
         return self.raw.write(view)
 
@@ -165,25 +167,31 @@ def note_content(path: Path, content: Callable[[], str]) -> None:
 
 
 @contextlib.contextmanager
-def atomic_open(path: Path, mode: str = "wb") -> Iterator[IO[Any]]:
+def atomic_open(path: Path, mode: str = "wb", same_as: Path | None = None) -> Iterator[IO[Any]]:
     """Write to a temporary name in the same directory, fsync (unless within
     :func:`deferred_syncs`), then rename into place.  On any error the temporary file is removed
     and ``path`` is left untouched; an OSError becomes an :class:`OutputError` naming ``path``.
-    The sha256 of the bytes written is kept for :func:`file_record`."""
+    The sha256 of the bytes written is kept for :func:`file_record`.  ``same_as``: a file this
+    process wrote with exactly the bytes about to be written: its digests are taken instead of
+    hashing the bytes again (the sizes must agree)."""
     tmp = temp_name(path)
     key = os.path.abspath(path)
     _WRITTEN.pop(key, None)
+    twin = _WRITTEN.get(os.path.abspath(same_as)) if same_as is not None else None
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
         with open(tmp, mode) as handle:
-            hashing = _HashingWriter(handle)
+            hashing = _HashingWriter(handle, hashed=twin is None)
             yield hashing
             handle.flush()
             checkpoint(f"write:{path}")
             if not _syncs_deferred:
                 os.fsync(handle.fileno())
+        if twin is not None and twin.bytes != hashing.size:
+            raise RuntimeError(f"{path}: written as a copy of {same_as}, but its size differs")
         os.replace(tmp, path)
-        _WRITTEN[key] = _WrittenFile(hashing.digest.hexdigest(), hashing.size, _stat_key(path))
+        _WRITTEN[key] = (_WrittenFile(hashing.digest.hexdigest(), hashing.size, _stat_key(path)) if twin is None
+                         else _WrittenFile(twin.sha256, twin.bytes, _stat_key(path), twin.content_sha256))
         if _early_syncs is not None:
             _schedule_early_sync(key)
     except BaseException as exc:

@@ -40,14 +40,17 @@ def shard_stem(split: str, index: int) -> str:
     return f"{split}/shard-{index:05d}"
 
 
-def write_npy(path: Path, array: np.ndarray) -> None:
+def write_npy(path: Path, array: np.ndarray, same_as: Path | None = None) -> None:
     """``numpy.save`` of ``array``, written as the header and then the array's own buffer
     (``numpy.save`` copies the data in chunks when the file is not a plain file object;
-    a test holds the bytes equal to it)."""
+    a test holds the bytes equal to it).  ``same_as``: a file this build wrote from the same
+    array, whose digests the new file takes instead of hashing the same bytes again."""
     array = np.ascontiguousarray(array)
-    with atomic_open(path) as handle:
+    with atomic_open(path, same_as=same_as) as handle:
         npformat.write_array_header_1_0(handle, npformat.header_data_from_array_1_0(array))
         handle.write(array.reshape(-1).view(np.uint8))
+    if not handle.hashed:
+        return
     note_content(path, lambda: array_digest(array))
 
 
@@ -89,13 +92,15 @@ class ShardWriter:
             + ([f"{stem}.parquet"] if self.parquet else [])
 
     def write(self, stem: str, tokens: np.ndarray, offsets: np.ndarray, langs: np.ndarray,
-              provenance: np.ndarray) -> list[str]:
-        """Write ``DIR/<stem>.*`` and return the paths written (relative to DIR)."""
+              provenance: np.ndarray, twin: str | None = None) -> list[str]:
+        """Write ``DIR/<stem>.*`` and return the paths written (relative to DIR).  ``twin``: the
+        stem of a condition written just before with the same ``offsets`` and ``langs`` arrays."""
         paths = []
         if self.npy:
             for suffix, array in (("tokens", tokens), ("offsets", offsets), ("langs", langs)):
                 path = f"{stem}.{suffix}.npy"
-                write_npy(self.out / path, array)
+                same = self.out / f"{twin}.{suffix}.npy" if twin is not None and suffix != "tokens" else None
+                write_npy(self.out / path, array, same_as=same)
                 paths.append(path)
         if self.parquet:
             path = f"{stem}.parquet"

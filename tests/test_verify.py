@@ -110,7 +110,7 @@ def test_container_change_is_told_apart_from_a_data_change(copy: Path, monkeypat
     # and adds 1 to one token of one shard (as a code change might).
     changed = first_shard(copy)
 
-    def write(path: Path, array: np.ndarray) -> None:
+    def write(path: Path, array: np.ndarray, same_as: Path | None = None) -> None:
         if path.as_posix().endswith(changed):
             array = array.copy()
             array[0] += 1
@@ -212,7 +212,7 @@ def test_a_build_recorded_with_the_older_content_digests_still_verifies(copy: Pa
 
     changed = first_shard(copy, "offsets")
 
-    def write(path: Path, array: np.ndarray) -> None:
+    def write(path: Path, array: np.ndarray, same_as: Path | None = None) -> None:
         _npy_version_2(path, array + 1 if path.as_posix().endswith(changed) else array)
 
     import bivocab.shards

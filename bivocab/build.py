@@ -29,6 +29,7 @@ from .manifest import (CONTENT_SCHEME, CONTROL_FILES, INCOMPLETE, LOCK, MANIFEST
                        atomic_write_text, background_digests, build_lock, canonical_json, check_inputs_unchanged,
                        checkpoint, deferred_syncs, environment, file_record, fsync_dir, read_manifest,
                        remove_temp_files, sha256_file, start_hashing_inputs, sync_files, write_error)
+from .memory import release_free_memory
 from .mix import SplitOrder, mix_split
 from .recipe import SPLITS, Recipe, load_recipe
 from .gather import ShardBuckets
@@ -474,6 +475,7 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
                 for cond in recipe.conditions:
                     _add_stat(stats[cond.name][split], shard_stats[cond.name])
                 advance(len(members), words=shard_stats[recipe.conditions[0].name][1])
+                release_free_memory()   # what the shard's threads freed (see bivocab.memory)
             buckets.remove()
 
         advance = meter.begin("vocab files", total=len(recipe.conditions), unit="conditions")
@@ -523,8 +525,9 @@ def _prepare_split(si: int, recipe: Recipe, arrays: list[dict[str, np.ndarray]],
     order = mix_split(si, rows, recipe.mix, recipe.seed, [a["lengths"] for a in arrays])
     shard_list = list(_shard_members(order, arrays, recipe.shards.max_tokens))
     buckets = ShardBuckets(work, SPLITS[si], order.langs, order.rows,
-                           np.repeat(np.arange(len(shard_list)), [len(m) for m in shard_list]),
+                           np.repeat(np.arange(len(shard_list), dtype=np.int32), [len(m) for m in shard_list]),
                            token_paths, [a["lengths"] for a in arrays], starts, threads)
+    release_free_memory()   # the bucket fill's temporaries
     return order, shard_list, buckets
 
 

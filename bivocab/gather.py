@@ -33,25 +33,33 @@ class ShardBuckets:
         n_shards = int(shard_of.max()) + 1 if len(shard_of) else 0
 
         def fill(li: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, Path]:
-            mine = langs == li
-            lang_rows, lang_shards = rows[mine], shard_of[mine]
             # Entries by (shard, row): by row first (one sort), then a stable sort by shard
             # (a radix sort of small integers); the second permutation also leads from the
-            # bucket order back to file order, which the copy needs.
+            # bucket order back to file order, which the copy needs. Temporaries are dropped
+            # as soon as they are used: this runs for two languages at once on the largest split.
+            mine = np.flatnonzero(langs == li)
+            lang_rows = rows[mine]
+            lang_shards = shard_of[mine].astype(np.uint16 if n_shards <= 1 << 16 else np.uint32)
+            del mine
             by_row = np.argsort(lang_rows)
-            shard_width = np.uint16 if n_shards <= 1 << 16 else np.uint32
-            to_bucket = np.argsort(lang_shards[by_row].astype(shard_width), kind="stable")
+            to_bucket = np.argsort(lang_shards[by_row], kind="stable")
             order = by_row[to_bucket]
-            sorted_rows, sorted_shards = lang_rows[order], lang_shards[order]
-            in_file_order = np.empty(len(order), dtype=np.int64)
-            in_file_order[to_bucket] = np.arange(len(order))
+            del by_row
+            position = np.int32 if len(order) < 1 << 31 else np.int64
+            in_file_order = np.empty(len(order), dtype=position)
+            in_file_order[to_bucket] = np.arange(len(order), dtype=position)
+            del to_bucket
+            sorted_rows = lang_rows[order]
+            del lang_rows
+            bounds = np.searchsorted(lang_shards[order], np.arange(n_shards + 1))
+            del order, lang_shards
             sizes = np.asarray(lengths[li])[sorted_rows].astype(np.int64)
             local = np.zeros(len(sizes) + 1, dtype=np.int64)
             np.cumsum(sizes, out=local[1:])
             bucket = work / f"bucket.{split}.{li}.bin"
             _copy_into_bucket(token_paths[li], bucket, sorted_rows, local[:-1], sizes, np.asarray(starts[li]),
                               in_file_order)
-            return sorted_rows, np.searchsorted(sorted_shards, np.arange(n_shards + 1)), local, bucket
+            return sorted_rows, bounds, local, bucket
 
         if threads > 1 and len(token_paths) > 1:
             with ThreadPoolExecutor(max_workers=threads, thread_name_prefix="bivocab-buckets") as pool:

@@ -242,7 +242,7 @@ def read_as_spans(source: InputFile) -> bool:
     """Whether the scan workers read the input themselves (uncompressed text taken line by
     line), so that its bytes never pass through the build process."""
     return (input_format(source) == "text" and source.path.suffix.lower() not in COMPRESSION_SUFFIXES
-            and not source.read.split_sentences)
+            and not source.read.split_sentences and source.path.is_file())   # a regular file: its size is its length
 
 
 def _scan_tasks(recipe: Recipe, files: list[InputFile], keep_text: bool) -> Iterator[ScanTask]:

@@ -272,11 +272,11 @@ def _scan_tasks(recipe: Recipe, files: list[InputFile], keep_text: bool) -> Iter
                 yield task
 
 
-def _in_file_lines(results: Iterator[ScanResult], files: list[InputFile],
-                   lines_before: list[int]) -> Iterator[ScanResult]:
+def _in_file_lines(results: Iterator[ScanResult], files: list[InputFile]) -> Iterator[ScanResult]:
     """The scan's results with the line numbers of spans (counted from 1 in each span) made
     file line numbers, in input order; a worker's error at a line of a span likewise."""
     spans = {f.display: i for i, f in enumerate(files) if read_as_spans(f)}
+    lines_before = [0] * len(files)   # of each file's spans merged so far
     try:
         for result in results:
             if result.span_lines is not None:
@@ -363,10 +363,9 @@ def _build_into(recipe: Recipe, out: Path, work: Path, jobs: int, meter: BuildMe
         type_maps = WorkerTypeMaps()
         # The sentences' text goes to the work directory only for hygiene and subword training.
         keep_text = hygiene.active or any(cond.units != "word" for cond in recipe.conditions)
-        lines_before = [0] * len(files)   # of the spans of each file merged so far
         results = ordered_map(scan_block, _scan_tasks(recipe, files, keep_text), jobs,
                               affinity=lambda task: tags.index(task.language))
-        for result in _in_file_lines(results, files, lines_before):
+        for result in _in_file_lines(results, files):
             started = time.perf_counter()
             li = lang_of_file[result.file_index]
             result = hygiene.filter_scan(result, li)
@@ -564,7 +563,7 @@ class VocabFiles:
                         write_text(tokenizer_path(name, tag),
                                    lambda: unigram_tokenizer_json(model, vocab, li, self.clean))
             else:
-                texts: dict[int, str] = {}   # made once when every language's file is the same
+                texts: dict[int, bytes] = {}   # made once when every language's file is the same
                 same = same_tokenizer_for_every_language(vocab)
                 for li, tag in enumerate(tags):
                     key = 0 if same else li

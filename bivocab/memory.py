@@ -24,7 +24,11 @@ def _trimmer() -> Callable[[], None]:
     except (OSError, AttributeError):
         return lambda: None
     trim.argtypes, trim.restype = [ctypes.c_size_t], ctypes.c_int
-    return lambda: trim(0) and None
+
+    def release() -> None:
+        trim(0)
+
+    return release
 
 
 _trim = _trimmer()

@@ -253,9 +253,11 @@ def scan_block(task: ScanTask) -> ScanResult:
     table = _table(task)
     if len(table.chunks) > MAX_CHUNKS:
         table.forget_chunks()
-    span = task.block if isinstance(task.block, FileSpan) else None
-    block = span.read() if span is not None else task.block
-    span_lines = block.line_count if span is not None else None
+    if isinstance(task.block, FileSpan):
+        block = task.block.read()
+        span_lines: int | None = block.line_count
+    else:
+        block, span_lines = task.block, None
     data, separators, text, numbers, counters = _lines_of(block, task.clean, task.display)
     cleaned_at = time.perf_counter()
     if not len(numbers):

@@ -49,9 +49,8 @@ def write_npy(path: Path, array: np.ndarray, same_as: Path | None = None) -> Non
     with atomic_open(path, same_as=same_as) as handle:
         npformat.write_array_header_1_0(handle, npformat.header_data_from_array_1_0(array))
         handle.write(array.reshape(-1).view(np.uint8))
-    if not handle.hashed:
-        return
-    note_content(path, lambda: array_digest(array))
+    if handle.hashed:   # else its digests are its twin's
+        note_content(path, lambda: array_digest(array))
 
 
 def parquet_table(tokens: np.ndarray, offsets: np.ndarray, langs: np.ndarray, provenance: np.ndarray,

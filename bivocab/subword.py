@@ -27,6 +27,8 @@ from .vocab import SHARED, Entry, EntryView, Vocabulary, special_tokens, tagged_
 
 BOUNDARY = "\u2581"                   # sentencepiece's visible space, written before a word
 SPACE, BYTE = "space", "byte"         # piece classes beyond the token classes
+
+
 class _OnFirstUse:
     """A module (or an attribute path in it) imported when first used: sentencepiece and its
     protobuf classes cost a word-level build about 30 ms of start-up it has no use for."""

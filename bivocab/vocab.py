@@ -319,7 +319,8 @@ def build_vocabulary(condition: ConditionSpec, tags: tuple[str, ...], surfaces: 
     suffixes = np.array(["", *(tagged_token("", t) for t in tags)], dtype=object)
     tokens = special_names + (chosen_surfaces + suffixes[lang_codes]).tolist()
     langs = [lang for _, lang in specials] + np.array([SHARED, *tags], dtype=object)[lang_codes].tolist()
-    if index.may_clash is None or index.may_clash[ranks].any():
+    may_clash = index.may_clash is None or bool(index.may_clash[ranks].any())
+    if may_clash:
         _check_unique(condition, tokens, langs, entry_surfaces)
     classes = [SPECIAL] * len(specials) + np.array(CLASS_NAMES, dtype=object)[index.class_by_rank[ranks]].tolist()
     entry_counts = np.zeros((len(tokens), n_lang), dtype=np.int64)
@@ -343,7 +344,7 @@ def build_vocabulary(condition: ConditionSpec, tags: tuple[str, ...], surfaces: 
             pa.concat_arrays([string_array(langs[:len(specials)]), string_array([SHARED, *tags]).take(codes)]),
             pa.concat_arrays([string_array(classes[:len(specials)]),
                               string_array(list(CLASS_NAMES)).take(int64_array(index.class_by_rank[ranks]))]),
-            may_repeat_keys=index.may_clash is None or bool(index.may_clash[ranks].any()))
+            may_repeat_keys=may_clash)
     dtype = np.uint16 if len(tokens) <= 1 << 16 else np.uint32
     id_of_key = np.full(len(keys), -1, dtype=np.int64)
     id_of_key[chosen] = np.arange(len(specials), len(specials) + len(chosen))
